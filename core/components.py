@@ -1,0 +1,211 @@
+"""Struct-of-arrays component tables: what an ECS stores for each rigid body.
+
+One :class:`Bodies` table per simulation holds a column per component field, each a numpy array
+whose first axis is the row (the body) and whose trailing axes are the components (design.md:
+components last). Columns are grouped as
+
+* pose (hot):      ``position`` (n) of the body origin, ``rotor`` (2**(n-1)); ``rotation`` (n, n)
+  is the rotor's matrix, refreshed by the simulation whenever rotors change;
+* motion (hot):    ``velocity`` (n) of the centre of mass, ``angular_velocity`` (k) world bivector;
+* mass (warm):     ``inv_mass``, ``inv_inertia`` (k, principal plane moments inverted),
+  ``principal_rotor`` (principal frame relative to the body frame), ``local_centroid`` (n);
+* accumulators:    ``force`` (n), ``torque`` (k bivector), cleared after each step;
+* settings:        ``linear_damping``, ``angular_damping``, ``kind`` (dynamic/kinematic/static);
+* collider:        ``shape_id``, ``shape_kind``, ``radius``, ``half_extents`` (n), ``layer``,
+  ``mask``, ``sensor``, and the material ``friction``, ``restitution``;
+* sleeping:        ``awake``, ``rest_time``.
+
+Bookkeeping that no system touches on a hot path (the handle of each row, the shape objects, user
+data) lives apart, in :class:`BodyInfo`.
+
+Rows are dense: ``rows [0, count)`` are live bodies. Adding appends (capacity doubles when full,
+so adds are amortised O(1)); removing moves the last row into the hole (O(1)). Handles are stable
+integers, never reused; ``handle_to_row`` maps them to rows.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .algebra import Algebra
+
+DYNAMIC, KINEMATIC, STATIC = 0, 1, 2
+KIND_NAMES = {"dynamic": DYNAMIC, "kinematic": KINEMATIC, "static": STATIC}
+
+# collider kinds: the narrowphase dispatches on pairs of these codes
+SHAPE_BALL, SHAPE_BOX, SHAPE_POLYTOPE, SHAPE_HALFSPACE, SHAPE_COMPOUND, SHAPE_MESH = range(6)
+
+ALL_LAYERS = 0xFFFFFFFF
+
+
+class Table:
+    """A growable struct-of-arrays table with swap-remove.
+
+    ``columns`` maps a name to ``(trailing_shape, dtype, default)``. Each column is exposed as an
+    attribute giving the live view ``array[:count]``; ``column(name)`` gives the same.
+    """
+
+    def __init__(self, columns: dict[str, tuple[tuple[int, ...], Any, Any]], capacity: int = 16) -> None:
+        self._spec = dict(columns)
+        self._data: dict[str, NDArray[Any]] = {}
+        self.count = 0
+        self.capacity = max(1, int(capacity))
+        for name, (trail, dtype, default) in self._spec.items():
+            arr = np.empty((self.capacity,) + tuple(trail), dtype=dtype)
+            arr[...] = default
+            self._data[name] = arr
+
+    def __getattr__(self, name: str) -> NDArray[Any]:
+        data = self.__dict__.get("_data")
+        if data is not None and name in data:
+            return data[name][: self.__dict__["count"]]
+        raise AttributeError(name)
+
+    def column(self, name: str) -> NDArray[Any]:
+        """The live rows of column ``name`` (a view: writes go to the table)."""
+        return self._data[name][: self.count]
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(self._spec)
+
+    def _grow(self, need: int) -> None:
+        cap = self.capacity
+        while cap < need:
+            cap *= 2
+        if cap == self.capacity:
+            return
+        for name, (trail, dtype, default) in self._spec.items():
+            old = self._data[name]
+            new = np.empty((cap,) + tuple(trail), dtype=dtype)
+            new[: self.count] = old[: self.count]
+            new[self.count:] = default
+            self._data[name] = new
+        self.capacity = cap
+
+    def append(self, values: dict[str, Any]) -> int:
+        """Append one row (missing columns take their default); returns the row index."""
+        self._grow(self.count + 1)
+        row = self.count
+        for name, (_trail, _dtype, default) in self._spec.items():
+            self._data[name][row] = values.get(name, default)
+        self.count += 1
+        return row
+
+    def swap_remove(self, row: int) -> int:
+        """Remove ``row`` by moving the last row into it. Returns the old index of the moved row
+        (equal to ``row`` when the removed row was the last)."""
+        last = self.count - 1
+        if row != last:
+            for arr in self._data.values():
+                arr[row] = arr[last]
+        for name, (_trail, _dtype, default) in self._spec.items():
+            self._data[name][last] = default
+        self.count -= 1
+        return last
+
+    def nbytes_per_row(self) -> int:
+        """Bytes of one row over all columns."""
+        return int(sum(a[0].nbytes for a in self._data.values()))
+
+
+def body_columns(alg: Algebra) -> dict[str, tuple[tuple[int, ...], Any, Any]]:
+    """Column spec of the body table for the algebra's dimension."""
+    n, k, E = alg.n, alg.k, alg.even_size
+    ident = alg.identity_rotor()
+    return {
+        # pose
+        "position": ((n,), np.float64, 0.0),
+        "rotor": ((E,), np.float64, ident),
+        "rotation": ((n, n), np.float64, np.eye(n)),
+        # motion
+        "velocity": ((n,), np.float64, 0.0),
+        "angular_velocity": ((k,), np.float64, 0.0),
+        # mass properties
+        "inv_mass": ((), np.float64, 0.0),
+        "inv_inertia": ((k,), np.float64, 0.0),
+        "principal_rotor": ((E,), np.float64, ident),
+        "local_centroid": ((n,), np.float64, 0.0),
+        # accumulators
+        "force": ((n,), np.float64, 0.0),
+        "torque": ((k,), np.float64, 0.0),
+        # settings
+        "linear_damping": ((), np.float64, 0.0),
+        "angular_damping": ((), np.float64, 0.0),
+        "kind": ((), np.int8, DYNAMIC),
+        # collider and material
+        "shape_id": ((), np.int32, -1),
+        "shape_kind": ((), np.int8, SHAPE_BALL),
+        "radius": ((), np.float64, 0.0),
+        "half_extents": ((n,), np.float64, 0.0),
+        "layer": ((), np.uint32, 1),
+        "mask": ((), np.uint32, ALL_LAYERS),
+        "sensor": ((), np.bool_, False),
+        "friction": ((), np.float64, 0.5),
+        "restitution": ((), np.float64, 0.0),
+        # sleeping
+        "awake": ((), np.bool_, True),
+        "rest_time": ((), np.float64, 0.0),
+        # stable handle of each row (read by systems that key caches by body)
+        "handle": ((), np.int64, -1),
+    }
+
+
+class Bodies(Table):
+    """The body table of one simulation (see the module docstring for the columns)."""
+
+    def __init__(self, alg: Algebra, capacity: int = 16) -> None:
+        super().__init__(body_columns(alg), capacity)
+        self.alg = alg
+
+    def centroids(self) -> NDArray[np.float64]:
+        """World centres of mass (N, n): position + rotation @ local_centroid."""
+        return self.position + np.einsum("nij,nj->ni", self.rotation, self.local_centroid)
+
+    def principal_matrices(self) -> NDArray[np.float64]:
+        """World-from-principal rotation matrices (N, n, n)."""
+        P = self.alg.rotor_to_matrix(self.principal_rotor)
+        return np.einsum("nij,njk->nik", self.rotation, P)
+
+    def world_inv_inertia(self) -> NDArray[np.float64]:
+        """World-frame inverse inertia maps (N, k, k): C2(P) diag(inv_inertia) C2(P)^T."""
+        from .algebra import second_compound
+
+        C = second_compound(self.principal_matrices())
+        return np.einsum("nij,nj,nkj->nik", C, self.inv_inertia, C)
+
+
+@dataclass
+class BodyInfo:
+    """Cold bookkeeping, apart from the hot arrays: handle <-> row maps, shapes, user data."""
+
+    handle_to_row: NDArray[np.int64] = field(default_factory=lambda: np.full(16, -1, dtype=np.int64))
+    row_to_handle: list[int] = field(default_factory=list)
+    shapes: list[Any] = field(default_factory=list)  # shape registry: shape_id -> shape object
+    shape_ids: dict[int, int] = field(default_factory=dict)  # id(shape) -> shape_id
+    user_data: dict[int, Any] = field(default_factory=dict)  # handle -> anything
+    next_handle: int = 0
+
+    def new_handle(self, row: int) -> int:
+        h = self.next_handle
+        self.next_handle += 1
+        if h >= len(self.handle_to_row):
+            grown = np.full(max(16, 2 * len(self.handle_to_row)), -1, dtype=np.int64)
+            grown[: len(self.handle_to_row)] = self.handle_to_row
+            self.handle_to_row = grown
+        self.handle_to_row[h] = row
+        self.row_to_handle.append(h)
+        return h
+
+    def shape_id(self, shape: Any) -> int:
+        key = id(shape)
+        sid = self.shape_ids.get(key)
+        if sid is None:
+            sid = len(self.shapes)
+            self.shapes.append(shape)
+            self.shape_ids[key] = sid
+        return sid

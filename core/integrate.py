@@ -1,0 +1,123 @@
+"""The integrate systems: Euler's equations for rigid bodies in any dimension.
+
+Linear part: semi-implicit (symplectic) Euler, ``v += h (g + F/m)`` then ``x += h v``.
+
+Angular part, in the principal body frame (where the inertia map is diagonal with the plane
+moments I_ij = c_i + c_j). With body angular velocity w and momentum L = I w, the torque-free
+equations read, in the commutator product of bivectors ``a x b = (ab - ba)/2``,
+
+    I dw/dt = w x (I w) + tau.                                                      (1)
+
+(In skew-matrix form this is dL/dt = [L, W], the n-dimensional Euler equation; for n = 3 it is
+the classical I dw/dt = (I w) x w + tau with the vector cross product. The sign was fixed once in
+the skew form and is pinned by tests against solve_ivp.)
+
+* explicit: ``w2 = w1 + h I^-1 (w1 x I w1 + tau)``;
+* implicit (default): the torque is applied first, then ``f(w2) = I (w2 - w1) - h w2 x (I w2) = 0``
+  is solved with one Newton step from w1, ``J = I - h (ad_w1 I - ad_(I w1))``, ``ad_a(b) = a x b``
+  (Catto, "Numerical Methods", GDC 2015, gives this one-step implicit gyroscopic scheme in 3-D;
+  the bivector form makes it dimension-free). It is stable for long thin bodies where the explicit
+  term pumps energy.
+
+Orientation: ``R(t+h) = exp(-h/2 B) R(t)`` with the world angular velocity B, by the exact rotor
+exponential, then one Newton renormalisation step (``Algebra.rotor_normalize``) so that rounding
+drift never accumulates. The body origin follows the centre of mass.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .algebra import Algebra, second_compound
+from .components import DYNAMIC, KINEMATIC, Bodies
+
+Array = NDArray[np.float64]
+
+GYRO_IMPLICIT = "implicit"
+GYRO_EXPLICIT = "explicit"
+GYRO_NONE = "none"
+
+
+def body_frames(alg: Algebra, rotation: Array, principal_rotor: Array) -> Array:
+    """Second compound matrices (N, k, k) of the world-from-principal rotations."""
+    P = np.einsum("nij,njk->nik", rotation, alg.rotor_to_matrix(principal_rotor))
+    return second_compound(P)
+
+
+def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array, dt: float,
+                    mode: str = GYRO_IMPLICIT) -> Array:
+    """Advance body-frame angular velocities (N, k) over dt under equation (1).
+
+    ``inertia`` (N, k) principal plane moments (finite, > 0); ``tau_body`` (N, k) body torques.
+    """
+    if mode == GYRO_NONE:
+        return w_body + dt * tau_body / inertia
+    if mode == GYRO_EXPLICIT:
+        gyro = alg.commutator(w_body, inertia * w_body)
+        return w_body + dt * (gyro + tau_body) / inertia
+    w1 = w_body + dt * tau_body / inertia
+    L1 = inertia * w1
+    f = -dt * alg.commutator(w1, L1)  # f(w1) = I (w1 - w1) - h w1 x I w1
+    # J = I - h (ad_w1 o diag(I) - ad_(I w1))
+    J = alg.commutator_matrix(w1) * inertia[:, None, :] - alg.commutator_matrix(L1)
+    J *= -dt
+    idx = np.arange(alg.k)
+    J[:, idx, idx] += inertia
+    return w1 - np.linalg.solve(J, f[..., None])[..., 0]
+
+
+def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
+                         gyroscopic: str = GYRO_IMPLICIT) -> None:
+    """Apply gravity, forces, torques, damping and the gyroscopic term to awake dynamic bodies."""
+    rows = np.nonzero((b.kind == DYNAMIC) & b.awake)[0]
+    if rows.size == 0:
+        return
+    inv_m = b.inv_mass[rows]
+    v = b.velocity[rows] + dt * (gravity + inv_m[:, None] * b.force[rows])
+    v *= (1.0 / (1.0 + dt * b.linear_damping[rows]))[:, None]
+    b.velocity[rows] = v
+
+    inv_i = b.inv_inertia[rows]
+    rotating = np.any(inv_i > 0.0, axis=1)
+    if not np.any(rotating):
+        return
+    r = rows[rotating]
+    inv_i = inv_i[rotating]
+    C = body_frames(alg, b.rotation[r], b.principal_rotor[r])
+    w_body = np.einsum("nji,nj->ni", C, b.angular_velocity[r])
+    tau_body = np.einsum("nji,nj->ni", C, b.torque[r])
+    # planes with zero inverse inertia (locked) keep zero velocity: give them unit inertia and
+    # zero the result, which avoids a division by zero without a branch
+    locked = inv_i <= 0.0
+    inertia = np.where(locked, 1.0, 1.0 / np.where(locked, 1.0, inv_i))
+    w_body = np.where(locked, 0.0, w_body)
+    tau_body = np.where(locked, 0.0, tau_body)
+    w2 = gyroscopic_step(alg, w_body, inertia, tau_body, dt, gyroscopic)
+    w2 = np.where(locked, 0.0, w2)
+    w2 *= (1.0 / (1.0 + dt * b.angular_damping[r]))[:, None]
+    b.angular_velocity[r] = np.einsum("nij,nj->ni", C, w2)
+
+
+def integrate_positions(alg: Algebra, b: Bodies, dt: float) -> None:
+    """Move awake dynamic and kinematic bodies: centre of mass by h v, orientation by the exact
+    rotor exponential of h times the world angular velocity; refresh the rotation matrices."""
+    rows = np.nonzero(((b.kind == DYNAMIC) | (b.kind == KINEMATIC)) & b.awake)[0]
+    if rows.size == 0:
+        return
+    rot = b.rotation[rows]
+    c_local = b.local_centroid[rows]
+    com = b.position[rows] + np.einsum("nij,nj->ni", rot, c_local)
+    com += dt * b.velocity[rows]
+    R = alg.rotor_mul(alg.rotor(dt * b.angular_velocity[rows]), b.rotor[rows])
+    R = alg.rotor_normalize(R, steps=1)
+    M = alg.rotor_to_matrix(R)
+    b.rotor[rows] = R
+    b.rotation[rows] = M
+    b.position[rows] = com - np.einsum("nij,nj->ni", M, c_local)
+
+
+def clear_accumulators(b: Bodies) -> None:
+    """Zero the force and torque accumulators after a step."""
+    b.force[...] = 0.0
+    b.torque[...] = 0.0

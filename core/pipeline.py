@@ -1,0 +1,85 @@
+"""The collision, solver and sleep stages of a step, as thin wrappers over the systems.
+
+Each wrapper reads the simulation's tables, calls the system (a function of arrays) and stores
+what later stages need on the simulation (``sim.pairs``, ``sim.contacts``, ``sim.events``).
+Caches that live across steps (the pair cache, warm-start impulses, sleep islands) are kept in
+``sim.caches`` under the name of the system that owns them.
+
+Contact events: a pair *touches* in a step when one of its points has depth >= 0. A ``begin``
+event is reported for a pair that touches now and did not in the previous step, an ``end`` event
+for one that no longer touches (or whose body was removed). Sensor pairs report the same events
+but produce no contacts.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, NamedTuple
+
+import numpy as np
+
+from . import broadphase, narrowphase, sleep, solver
+
+if TYPE_CHECKING:
+    from .simulation import Simulation, Stage
+
+
+class ContactEvent(NamedTuple):
+    """A pair of bodies that started ("begin") or stopped ("end") touching in the last step."""
+
+    kind: str
+    handle_a: int
+    handle_b: int
+    sensor: bool
+
+
+def _stage_update_pairs(sim: Simulation, dt: float) -> None:
+    sim.pairs = broadphase.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+
+
+def _stage_collide(sim: Simulation, dt: float) -> None:
+    contacts, touching, sensor_touching = narrowphase.collide(
+        sim.alg, sim.bodies, sim.pairs, sim.info.shapes, sim.settings, sim.caches, dt)
+    sim.contacts = contacts
+    _update_events(sim, touching, sensor_touching)
+
+
+def _stage_solve(sim: Simulation, dt: float) -> None:
+    solver.solve_contacts(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+
+
+def _stage_sleep(sim: Simulation, dt: float) -> None:
+    sleep.update_sleep(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+
+
+def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
+    """Diff this step's touching handle pairs (T, 2) against the last step's."""
+    h = sim.bodies.handle
+    now: set[tuple[int, int, bool]] = set()
+    for pairs, is_sensor in ((touching, False), (sensor_touching, True)):
+        if len(pairs):
+            ha, hb = h[pairs[:, 0]], h[pairs[:, 1]]
+            lo, hi = np.minimum(ha, hb), np.maximum(ha, hb)
+            now.update(zip(lo.tolist(), hi.tolist(), [is_sensor] * len(lo)))
+    before: set[tuple[int, int, bool]] = sim.caches.get("touching", set())
+    for a, b, s in sorted(now - before):
+        sim.events.append(ContactEvent("begin", a, b, s))
+    for a, b, s in sorted(before - now):
+        sim.events.append(ContactEvent("end", a, b, s))
+    sim.caches["touching"] = now
+
+
+def removal_events(sim: Simulation, handle: int) -> None:
+    """End events for every touching pair of a body that is being removed."""
+    before: set[tuple[int, int, bool]] = sim.caches.get("touching", set())
+    gone = {t for t in before if handle in (t[0], t[1])}
+    for a, b, s in sorted(gone):
+        sim.events.append(ContactEvent("end", a, b, s))
+    sim.caches["touching"] = before - gone
+
+
+def collision_stages() -> list[tuple[str, Stage]]:
+    return [("update_pairs", _stage_update_pairs), ("collide", _stage_collide), ("solve_contacts", _stage_solve)]
+
+
+def sleep_stages() -> list[tuple[str, Stage]]:
+    return [("update_sleep", _stage_sleep)]

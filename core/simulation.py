@@ -1,0 +1,651 @@
+"""The Simulation facade: owns the tables of one world and runs the ordered stages of a step.
+
+A step runs these stages in order, each a plain function of the body table (and of the contact
+arrays the earlier stages made), each timed into :attr:`Simulation.profile`:
+
+1. ``integrate_velocities`` -- gravity, forces, torques, damping, gyroscopic term;
+2. ``update_pairs``         -- broadphase: bounding boxes and candidate pairs;
+3. ``collide``              -- narrowphase: contact manifolds with feature ids;
+4. ``solve_contacts``       -- sequential impulses with friction, restitution, warm starting;
+5. ``integrate_positions``  -- positions and rotors from the new velocities;
+6. ``update_sleep``         -- islands, sleeping and waking.
+
+Every public method validates its input before touching any state, so a call that raises leaves
+the simulation exactly as it was.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field, replace
+from typing import Any, Callable
+
+import numpy as np
+from numpy.typing import NDArray
+
+from . import integrate as _integrate
+from .algebra import Algebra
+from .components import (
+    ALL_LAYERS,
+    DYNAMIC,
+    KIND_NAMES,
+    KINEMATIC,
+    SHAPE_BALL,
+    SHAPE_BOX,
+    SHAPE_COMPOUND,
+    SHAPE_HALFSPACE,
+    SHAPE_MESH,
+    SHAPE_POLYTOPE,
+    STATIC,
+    Bodies,
+    BodyInfo,
+)
+from .errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+
+Array = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Settings of a simulation (all SI units). Change with ``sim.settings = replace(sim.settings, ...)``.
+
+    Attributes:
+        dt: default time step of :meth:`Simulation.step`, s.
+        substeps: sub-steps per step (each runs the whole pipeline with dt / substeps).
+        gyroscopic: "implicit" (default, one Newton step), "explicit" or "none".
+        velocity_iterations: solver iterations with the soft position bias.
+        relax_iterations: solver iterations without bias (remove the bias velocity).
+        contact_hertz: stiffness frequency of the soft contact constraint, Hz.
+        contact_damping_ratio: damping ratio of the soft contact constraint.
+        max_push_speed: cap on the speed at which overlap is pushed apart, m/s.
+        linear_slop: overlap allowed without correction, m.
+        speculative_distance: contacts are kept while the gap is below this, m (continuous
+            collision: a fast body is stopped at the surface instead of passing through).
+        aabb_margin: fattening of the broadphase boxes, m.
+        restitution_threshold: normal approach speeds below this do not bounce, m/s.
+        warm_start: reuse last step's impulses matched by feature ids.
+        allow_sleep: let resting islands sleep.
+        sleep_linear_speed: speed below which a body counts as resting, m/s.
+        sleep_time: rest time before an island sleeps, s.
+    """
+
+    dt: float = 1.0 / 60.0
+    substeps: int = 1
+    gyroscopic: str = "implicit"
+    velocity_iterations: int = 8
+    relax_iterations: int = 3
+    contact_hertz: float = 30.0
+    contact_damping_ratio: float = 10.0
+    max_push_speed: float = 3.0
+    linear_slop: float = 0.005
+    speculative_distance: float = 0.1
+    aabb_margin: float = 0.05
+    restitution_threshold: float = 1.0
+    warm_start: bool = True
+    allow_sleep: bool = True
+    sleep_linear_speed: float = 0.05
+    sleep_time: float = 0.5
+
+    def validated(self) -> Settings:
+        for name in ("dt", "contact_hertz", "contact_damping_ratio", "max_push_speed", "sleep_time"):
+            positive_scalar(f"settings.{name}", getattr(self, name))
+        for name in ("linear_slop", "speculative_distance", "aabb_margin", "restitution_threshold",
+                     "sleep_linear_speed"):
+            positive_scalar(f"settings.{name}", getattr(self, name), allow_zero=True)
+        for name in ("substeps", "velocity_iterations"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, np.integer)) or v < 1:
+                raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
+        if not isinstance(self.relax_iterations, (int, np.integer)) or self.relax_iterations < 0:
+            raise InputError(f"settings.relax_iterations: expected an integer >= 0, got {self.relax_iterations!r}")
+        if self.gyroscopic not in (_integrate.GYRO_IMPLICIT, _integrate.GYRO_EXPLICIT, _integrate.GYRO_NONE):
+            raise InputError(f"settings.gyroscopic: expected 'implicit', 'explicit' or 'none', got {self.gyroscopic!r}")
+        return self
+
+
+@dataclass
+class StepProfile:
+    """Seconds spent in each stage during the last step (summed over substeps)."""
+
+    stages: dict[str, float] = field(default_factory=dict)
+    total: float = 0.0
+
+
+Stage = Callable[["Simulation", float], None]
+
+
+class Simulation:
+    """A world of rigid bodies in ``dim`` dimensions.
+
+    Example (4-D)::
+
+        sim = Simulation(4)
+        floor = sim.add_body(HalfSpace(4, normal=[0, 1, 0, 0], offset=0.0), kind="static")
+        ball = sim.add_body(Ball(4, 0.5), position=[0, 2, 0, 0], density=1000.0)
+        for _ in range(60):
+            sim.step()
+        print(sim.position(ball))
+
+    Args:
+        dim: number of spatial dimensions (>= 2).
+        gravity: (dim,) acceleration; default 9.81 m/s^2 along -e_1 ("up" is +e_1).
+        settings: a :class:`Settings`; defaults are tuned for 60 Hz game use.
+    """
+
+    def __init__(self, dim: int, gravity: Any = None, settings: Settings | None = None) -> None:
+        n = dimension("dim", dim)
+        alg = Algebra(n)
+        if gravity is None:
+            g = np.zeros(n)
+            g[1] = -9.81
+        else:
+            g = as_float_array("gravity", gravity, (n,)).copy()
+        self.settings = (settings or Settings()).validated()
+        self.alg = alg
+        self.dim = n
+        self.gravity = g
+        self.bodies = Bodies(alg)
+        self.info = BodyInfo()
+        self.profile = StepProfile()
+        self.time = 0.0
+        self.step_count = 0
+        # state shared between stages of one step (candidate pairs, contacts, caches)
+        self.pairs: NDArray[np.int64] = np.zeros((0, 2), dtype=np.int64)
+        self.contacts: Any = None
+        self.caches: dict[str, Any] = {}
+        self.events: list[Any] = []  # contact events of the last step (plus removals since)
+        self._pending_events: list[Any] = []
+        self.stages: list[tuple[str, Stage]] = default_stages()
+
+    # -- bodies -----------------------------------------------------------------------------------
+
+    def add_body(
+        self,
+        shape: Any,
+        *,
+        position: Any = None,
+        rotor: Any = None,
+        velocity: Any = None,
+        angular_velocity: Any = None,
+        density: float | None = None,
+        mass: float | None = None,
+        kind: str = "dynamic",
+        friction: float = 0.5,
+        restitution: float = 0.0,
+        layer: int = 1,
+        mask: int = ALL_LAYERS,
+        linear_damping: float = 0.0,
+        angular_damping: float = 0.0,
+        sensor: bool = False,
+        user_data: Any = None,
+    ) -> int:
+        """Add a body and return its handle (a stable int, never reused).
+
+        Args:
+            shape: a shape from :mod:`ndrigid.core.shapes` of the simulation's dimension.
+            position: (n,) world position of the shape's local origin (default 0).
+            rotor: (2**(n-1),) unit rotor of the body (default identity).
+            velocity: (n,) velocity of the centre of mass.
+            angular_velocity: (k,) world-frame angular velocity bivector.
+            density / mass: at most one; default density 1000 kg/m^n. Ignored for static bodies.
+            kind: "dynamic", "kinematic" (moves by its velocity, never pushed) or "static".
+            friction, restitution: material coefficients (>= 0; combined per contact by the
+                geometric mean and the maximum respectively).
+            layer, mask: collision filter bits: A and B collide iff (A.layer & B.mask) and
+                (B.layer & A.mask) are both non-zero.
+            linear_damping, angular_damping: rates >= 0, 1/s.
+            sensor: report overlaps as events, produce no contact response.
+        """
+        alg, n = self.alg, self.dim
+        row_values = self._body_values(shape, position, rotor, velocity, angular_velocity, density, mass,
+                                       kind, friction, restitution, layer, mask, linear_damping,
+                                       angular_damping, sensor)
+        sid = self.info.shape_id(shape)
+        row_values["shape_id"] = sid
+        row = self.bodies.append(row_values)
+        h = self.info.new_handle(row)
+        self.bodies.handle[row] = h
+        if user_data is not None:
+            self.info.user_data[h] = user_data
+        self._wake_touching(row)
+        del alg, n
+        return h
+
+    def _body_values(self, shape: Any, position: Any, rotor: Any, velocity: Any, angular_velocity: Any,
+                     density: Any, mass: Any, kind: str, friction: Any, restitution: Any, layer: Any,
+                     mask: Any, linear_damping: Any, angular_damping: Any, sensor: Any) -> dict[str, Any]:
+        """Validate every argument of add_body and build the row (no state is touched here)."""
+        alg, n = self.alg, self.dim
+        sdim = getattr(shape, "dim", None)
+        if sdim is None:
+            raise InputTypeError(f"shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, ...), "
+                                 f"got {type(shape).__name__}")
+        if sdim != n:
+            raise InputError(f"shape: expected a shape of dimension {n}, got one of dimension {sdim}")
+        if kind not in KIND_NAMES:
+            raise InputError(f"kind: expected one of {sorted(KIND_NAMES)}, got {kind!r}")
+        code = KIND_NAMES[kind]
+        pos = np.zeros(n) if position is None else as_float_array("position", position, (n,))
+        R = alg.identity_rotor() if rotor is None else alg.check_rotor(rotor, "rotor")
+        R = alg.rotor_normalize(R, steps=2)
+        vel = np.zeros(n) if velocity is None else as_float_array("velocity", velocity, (n,))
+        om = np.zeros(alg.k) if angular_velocity is None else as_float_array(
+            "angular_velocity", angular_velocity, (alg.k,))
+        if density is not None and mass is not None:
+            raise InputError("density, mass: expected at most one of them, got both")
+        if density is not None:
+            density = positive_scalar("density", density)
+        if mass is not None:
+            mass = positive_scalar("mass", mass)
+        fr = positive_scalar("friction", friction, allow_zero=True)
+        re = positive_scalar("restitution", restitution, allow_zero=True)
+        ld = positive_scalar("linear_damping", linear_damping, allow_zero=True)
+        ad = positive_scalar("angular_damping", angular_damping, allow_zero=True)
+        for name, bits in (("layer", layer), ("mask", mask)):
+            if isinstance(bits, bool) or not isinstance(bits, (int, np.integer)) or not 0 <= int(bits) <= ALL_LAYERS:
+                raise InputError(f"{name}: expected an integer bit mask in [0, 2**32), got {bits!r}")
+
+        kind_code = shape_kind(shape)
+        values: dict[str, Any] = {
+            "position": pos, "rotor": R, "rotation": alg.rotor_to_matrix(R), "kind": code,
+            "friction": fr, "restitution": re, "layer": int(layer), "mask": int(mask),
+            "linear_damping": ld, "angular_damping": ad, "sensor": bool(sensor), "shape_kind": kind_code,
+            "radius": float(shape.bounding_radius) if kind_code != SHAPE_HALFSPACE else np.inf,
+        }
+        if kind_code == SHAPE_BOX:
+            values["half_extents"] = np.asarray(shape.half_extents, dtype=np.float64)
+        if kind_code == SHAPE_BALL:
+            values["radius"] = float(shape.radius)
+        if code == DYNAMIC:
+            if kind_code == SHAPE_HALFSPACE:
+                raise InputError("kind: a HalfSpace has no finite mass; expected kind='static' or 'kinematic', "
+                                 "got 'dynamic'")
+            if density is None and mass is None:
+                density = 1000.0
+            mp = shape.mass_properties(density=density, mass=mass)
+            values["inv_mass"] = 1.0 / mp.mass
+            values["inv_inertia"] = 1.0 / np.asarray(mp.principal_moments, dtype=np.float64)
+            values["principal_rotor"] = np.asarray(mp.principal_rotor, dtype=np.float64)
+            values["local_centroid"] = np.asarray(mp.centroid, dtype=np.float64)
+            values["velocity"] = vel
+            values["angular_velocity"] = om
+        elif code == KINEMATIC:
+            if kind_code != SHAPE_HALFSPACE:
+                mp = shape.mass_properties(density=1.0)
+                values["local_centroid"] = np.asarray(mp.centroid, dtype=np.float64)
+            values["velocity"] = vel
+            values["angular_velocity"] = om
+        return values
+
+    def remove_body(self, handle: int) -> None:
+        """Remove a body; bodies resting on it wake up."""
+        row = self.row(handle)
+        self._wake_touching(row)
+        self._removal_events(handle)
+        b, info = self.bodies, self.info
+        moved_from = b.swap_remove(row)
+        if moved_from != row:
+            moved_handle = info.row_to_handle[moved_from]
+            info.row_to_handle[row] = moved_handle
+            info.handle_to_row[moved_handle] = row
+        info.row_to_handle.pop()
+        info.handle_to_row[handle] = -1
+        info.user_data.pop(handle, None)
+        self.caches.pop("pairs", None)  # cached pairs refer to rows; rebuild next step
+
+    def _removal_events(self, handle: int) -> None:
+        """Queue end events for the touching pairs of a body being removed (reported by the next
+        step, before that step's own events)."""
+        try:
+            from .pipeline import removal_events
+        except ImportError:
+            return
+        events, self.events = self.events, self._pending_events
+        removal_events(self, handle)
+        self._pending_events, self.events = self.events, events
+
+    def _wake_touching(self, row: int) -> None:
+        """Wake every body that shares a contact with ``row`` (and the body itself)."""
+        b = self.bodies
+        b.awake[row] = True
+        b.rest_time[row] = 0.0
+        c = self.contacts
+        if c is None or getattr(c, "count", 0) == 0:
+            return
+        touching = np.concatenate([c.body_b[c.body_a == row], c.body_a[c.body_b == row]])
+        touching = touching[touching < b.count]
+        b.awake[touching] = True
+        b.rest_time[touching] = 0.0
+
+    def row(self, handle: Any) -> int:
+        """Row index of a live body handle; raises InputError for an unknown or removed handle."""
+        if isinstance(handle, bool) or not isinstance(handle, (int, np.integer)):
+            raise InputTypeError(f"handle: expected an integer body handle, got {handle!r}")
+        h = int(handle)
+        if not 0 <= h < self.info.next_handle or self.info.handle_to_row[h] < 0:
+            raise InputError(f"handle: expected the handle of a live body, got {h} (unknown or removed)")
+        return int(self.info.handle_to_row[h])
+
+    def rows(self, handles: Any) -> NDArray[np.int64]:
+        """Row indices (N,) of live body handles (N,)."""
+        hs = np.asarray(handles, dtype=np.int64).reshape(-1)
+        ok = (hs >= 0) & (hs < self.info.next_handle)
+        r = np.full(hs.shape, -1, dtype=np.int64)
+        r[ok] = self.info.handle_to_row[hs[ok]]
+        if np.any(r < 0):
+            raise InputError(f"handles: expected live body handles, got removed/unknown {hs[r < 0][:5].tolist()}")
+        return r
+
+    @property
+    def count(self) -> int:
+        """Number of live bodies."""
+        return self.bodies.count
+
+    @property
+    def handles(self) -> NDArray[np.int64]:
+        """Handles of all live bodies (N,), in row order (the order of the array getters)."""
+        return self.bodies.handle.copy()
+
+    def shape(self, handle: int) -> Any:
+        """The shape object of a body."""
+        return self.info.shapes[int(self.bodies.shape_id[self.row(handle)])]
+
+    # -- state getters and setters ----------------------------------------------------------------
+
+    @property
+    def positions(self) -> Array:
+        """(N, n) world positions of the bodies' local origins, row order (a copy)."""
+        return self.bodies.position.copy()
+
+    @property
+    def rotors(self) -> Array:
+        """(N, 2**(n-1)) rotors, row order (a copy)."""
+        return self.bodies.rotor.copy()
+
+    @property
+    def rotations(self) -> Array:
+        """(N, n, n) rotation matrices, row order (a copy)."""
+        return self.bodies.rotation.copy()
+
+    @property
+    def velocities(self) -> Array:
+        """(N, n) centre-of-mass velocities, row order (a copy)."""
+        return self.bodies.velocity.copy()
+
+    @property
+    def angular_velocities(self) -> Array:
+        """(N, k) world angular velocity bivectors, row order (a copy)."""
+        return self.bodies.angular_velocity.copy()
+
+    @property
+    def centroids(self) -> Array:
+        """(N, n) world centres of mass, row order."""
+        return self.bodies.centroids()
+
+    def position(self, handle: int) -> Array:
+        """(n,) world position of a body's local origin."""
+        return self.bodies.position[self.row(handle)].copy()
+
+    def rotor(self, handle: int) -> Array:
+        """(2**(n-1),) rotor of a body."""
+        return self.bodies.rotor[self.row(handle)].copy()
+
+    def rotation(self, handle: int) -> Array:
+        """(n, n) rotation matrix of a body."""
+        return self.bodies.rotation[self.row(handle)].copy()
+
+    def velocity(self, handle: int) -> Array:
+        """(n,) centre-of-mass velocity of a body."""
+        return self.bodies.velocity[self.row(handle)].copy()
+
+    def angular_velocity(self, handle: int) -> Array:
+        """(k,) world angular velocity bivector of a body."""
+        return self.bodies.angular_velocity[self.row(handle)].copy()
+
+    def centroid(self, handle: int) -> Array:
+        """(n,) world centre of mass of a body."""
+        r = self.row(handle)
+        b = self.bodies
+        return b.position[r] + b.rotation[r] @ b.local_centroid[r]
+
+    def kind(self, handle: int) -> str:
+        """"dynamic", "kinematic" or "static"."""
+        code = int(self.bodies.kind[self.row(handle)])
+        return {v: k for k, v in KIND_NAMES.items()}[code]
+
+    def is_awake(self, handle: int) -> bool:
+        return bool(self.bodies.awake[self.row(handle)])
+
+    def set_pose(self, handle: int, position: Any = None, rotor: Any = None) -> None:
+        """Teleport a body (position of its local origin and/or rotor); wakes it."""
+        r = self.row(handle)
+        pos = None if position is None else as_float_array("position", position, (self.dim,))
+        R = None if rotor is None else self.alg.rotor_normalize(self.alg.check_rotor(rotor, "rotor"), 2)
+        b = self.bodies
+        if pos is not None:
+            b.position[r] = pos
+        if R is not None:
+            b.rotor[r] = R
+            b.rotation[r] = self.alg.rotor_to_matrix(R)
+        self._wake_touching(r)
+
+    def set_velocity(self, handle: int, velocity: Any = None, angular_velocity: Any = None) -> None:
+        """Set a dynamic or kinematic body's velocity and/or angular velocity bivector; wakes it."""
+        r = self.row(handle)
+        v = None if velocity is None else as_float_array("velocity", velocity, (self.dim,))
+        w = None if angular_velocity is None else as_float_array("angular_velocity", angular_velocity,
+                                                                  (self.alg.k,))
+        b = self.bodies
+        if b.kind[r] == STATIC and (v is not None and np.any(v) or w is not None and np.any(w)):
+            raise InputError("handle: expected a dynamic or kinematic body, got a static one (static bodies "
+                             "do not move)")
+        if v is not None:
+            b.velocity[r] = v
+        if w is not None:
+            b.angular_velocity[r] = w
+        self._wake_touching(r)
+
+    def apply_force(self, handle: int, force: Any, point: Any = None) -> None:
+        """Add a force (n,) for the next step, at a world point (default: the centre of mass)."""
+        r = self.row(handle)
+        f = as_float_array("force", force, (self.dim,))
+        p = None if point is None else as_float_array("point", point, (self.dim,))
+        b = self.bodies
+        if b.kind[r] != DYNAMIC:
+            return
+        b.force[r] += f
+        if p is not None:
+            b.torque[r] += _wedge(self.alg, p - self.centroid(handle), f)
+        self._wake_touching(r)
+
+    def apply_torque(self, handle: int, torque: Any) -> None:
+        """Add a torque bivector (k,) for the next step."""
+        r = self.row(handle)
+        t = as_float_array("torque", torque, (self.alg.k,))
+        if self.bodies.kind[r] != DYNAMIC:
+            return
+        self.bodies.torque[r] += t
+        self._wake_touching(r)
+
+    def apply_impulse(self, handle: int, impulse: Any, point: Any = None) -> None:
+        """Apply an impulse (n,) now, at a world point (default: the centre of mass)."""
+        r = self.row(handle)
+        p_ = as_float_array("impulse", impulse, (self.dim,))
+        pt = None if point is None else as_float_array("point", point, (self.dim,))
+        b = self.bodies
+        if b.kind[r] != DYNAMIC:
+            return
+        b.velocity[r] += b.inv_mass[r] * p_
+        if pt is not None:
+            ang = _wedge(self.alg, pt - self.centroid(handle), p_)
+            b.angular_velocity[r] += self.bodies.world_inv_inertia()[r] @ ang
+        self._wake_touching(r)
+
+    # -- stepping ---------------------------------------------------------------------------------
+
+    def step(self, dt: float | None = None) -> None:
+        """Advance the world by dt seconds (default ``settings.dt``), in ``settings.substeps``."""
+        h = self.settings.dt if dt is None else positive_scalar("dt", dt)
+        sub = int(self.settings.substeps)
+        hs = h / sub
+        prof: dict[str, float] = {name: 0.0 for name, _ in self.stages}
+        t0 = time.perf_counter()
+        self.events, self._pending_events = self._pending_events, []
+        for _ in range(sub):
+            for name, stage in self.stages:
+                ts = time.perf_counter()
+                stage(self, hs)
+                prof[name] += time.perf_counter() - ts
+        _integrate.clear_accumulators(self.bodies)
+        self.profile = StepProfile(stages=prof, total=time.perf_counter() - t0)
+        self.time += h
+        self.step_count += 1
+
+    # -- physical quantities ----------------------------------------------------------------------
+
+    def _dynamic_rows(self) -> NDArray[np.intp]:
+        return np.nonzero(self.bodies.kind == DYNAMIC)[0]
+
+    def kinetic_energy(self, handle: int | None = None) -> float:
+        """Kinetic energy (J) of one body or of all dynamic bodies: m v^2/2 + <w, I w>/2."""
+        b = self.bodies
+        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
+        rows = rows[b.kind[rows] == DYNAMIC]
+        if rows.size == 0:
+            return 0.0
+        m = 1.0 / b.inv_mass[rows]
+        lin = 0.5 * np.sum(m * np.einsum("ni,ni->n", b.velocity[rows], b.velocity[rows]))
+        C = _integrate.body_frames(self.alg, b.rotation[rows], b.principal_rotor[rows])
+        wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
+        inv_i = b.inv_inertia[rows]
+        inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)
+        ang = 0.5 * np.sum(inertia * wb * wb)
+        return float(lin + ang)
+
+    def potential_energy(self, handle: int | None = None) -> float:
+        """Gravitational potential energy (J), -m g . x_c, zero at the origin."""
+        b = self.bodies
+        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
+        rows = rows[b.kind[rows] == DYNAMIC]
+        if rows.size == 0:
+            return 0.0
+        m = 1.0 / b.inv_mass[rows]
+        return float(-np.sum(m * (b.centroids()[rows] @ self.gravity)))
+
+    def energy(self, handle: int | None = None) -> float:
+        """Kinetic plus gravitational potential energy (J)."""
+        return self.kinetic_energy(handle) + self.potential_energy(handle)
+
+    def linear_momentum(self, handle: int | None = None) -> Array:
+        """Linear momentum (n,) of one body or of all dynamic bodies."""
+        b = self.bodies
+        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
+        rows = rows[b.kind[rows] == DYNAMIC]
+        return np.sum((1.0 / b.inv_mass[rows])[:, None] * b.velocity[rows], axis=0) if rows.size else \
+            np.zeros(self.dim)
+
+    def angular_momentum(self, handle: int | None = None, about: Any = "origin") -> Array:
+        """Angular momentum bivector (k,): spin I w plus orbital x_c ^ m v about a point.
+
+        ``about`` is "origin", "com" (the centre of mass of the bodies counted) or an (n,) point.
+        """
+        b = self.bodies
+        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
+        rows = rows[b.kind[rows] == DYNAMIC]
+        if rows.size == 0:
+            return np.zeros(self.alg.k)
+        m = 1.0 / b.inv_mass[rows]
+        xc = b.centroids()[rows]
+        if isinstance(about, str):
+            if about == "origin":
+                o = np.zeros(self.dim)
+            elif about == "com":
+                o = np.sum(m[:, None] * xc, axis=0) / np.sum(m)
+            else:
+                raise InputError(f"about: expected 'origin', 'com' or an (n,) point, got {about!r}")
+        else:
+            o = as_float_array("about", about, (self.dim,))
+        C = _integrate.body_frames(self.alg, b.rotation[rows], b.principal_rotor[rows])
+        wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
+        inv_i = b.inv_inertia[rows]
+        inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)
+        spin = np.einsum("nij,nj->ni", C, inertia * wb)
+        orbital = _wedge(self.alg, xc - o, m[:, None] * b.velocity[rows])
+        return np.sum(spin + orbital, axis=0)
+
+    def with_settings(self, **changes: Any) -> Simulation:
+        """Replace settings fields (validated); returns self for chaining."""
+        self.settings = replace(self.settings, **changes).validated()
+        return self
+
+
+def shape_kind(shape: Any) -> int:
+    """Collider kind code of a shape object (SHAPE_BALL, SHAPE_BOX, ...)."""
+    from . import shapes as S
+
+    for cls, code in ((S.Ball, SHAPE_BALL), (S.Box, SHAPE_BOX), (S.HalfSpace, SHAPE_HALFSPACE),
+                      (S.Compound, SHAPE_COMPOUND), (S.SimplexMesh, SHAPE_MESH),
+                      (S.ConvexPolytope, SHAPE_POLYTOPE)):
+        if isinstance(shape, cls):
+            return code
+    raise InputTypeError(f"shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, SimplexMesh, Compound, "
+                         f"HalfSpace), got {type(shape).__name__}")
+
+
+def _wedge(alg: Algebra, a: Array, b: Array) -> Array:
+    """Bivector components (..., k) of a ^ b for vectors a, b (..., n)."""
+    p = alg.pairs
+    return a[..., p[:, 0]] * b[..., p[:, 1]] - a[..., p[:, 1]] * b[..., p[:, 0]]
+
+
+# -- the default stages ---------------------------------------------------------------------------
+
+
+def _stage_integrate_velocities(sim: Simulation, dt: float) -> None:
+    _integrate.integrate_velocities(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+
+
+def _stage_integrate_positions(sim: Simulation, dt: float) -> None:
+    _integrate.integrate_positions(sim.alg, sim.bodies, dt)
+
+
+def default_stages() -> list[tuple[str, Stage]]:
+    """The ordered stages of a step. Collision and solver stages are added by their modules when
+    present (see :func:`_collision_stages`)."""
+    stages: list[tuple[str, Stage]] = [("integrate_velocities", _stage_integrate_velocities)]
+    stages += _collision_stages()
+    stages.append(("integrate_positions", _stage_integrate_positions))
+    stages += _sleep_stages()
+    return stages
+
+
+def _collision_stages() -> list[tuple[str, Stage]]:
+    try:
+        from .pipeline import collision_stages
+    except ImportError:  # collision not built into this tree
+        return []
+    return collision_stages()
+
+
+def _sleep_stages() -> list[tuple[str, Stage]]:
+    try:
+        from .pipeline import sleep_stages
+    except ImportError:
+        return []
+    return sleep_stages()
+
+
+__all__ = [
+    "DYNAMIC",
+    "KINEMATIC",
+    "STATIC",
+    "SHAPE_BALL",
+    "SHAPE_BOX",
+    "SHAPE_POLYTOPE",
+    "SHAPE_HALFSPACE",
+    "SHAPE_COMPOUND",
+    "SHAPE_MESH",
+    "Settings",
+    "Simulation",
+    "StepProfile",
+]
