@@ -17,7 +17,9 @@ the skew form and is pinned by tests against solve_ivp.)
   is solved with one Newton step from w1, ``J = I - h (ad_w1 I - ad_(I w1))``, ``ad_a(b) = a x b``
   (Catto, "Numerical Methods", GDC 2015, gives this one-step implicit gyroscopic scheme in 3-D;
   the bivector form makes it dimension-free). It is stable for long thin bodies where the explicit
-  term pumps energy.
+  term pumps energy. The Newton estimate then sets the exact rotation of the body momentum over
+  the step, which conserves |L| and the world momentum far better than the linearised step alone
+  (see gyroscopic_step).
 
 Orientation: ``R(t+h) = exp(-h/2 B) R(t)`` with the world angular velocity B, by the exact rotor
 exponential, then one Newton renormalisation step (``Algebra.rotor_normalize``) so that rounding
@@ -64,7 +66,21 @@ def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array
     J *= -dt
     idx = np.arange(alg.k)
     J[:, idx, idx] += inertia
-    return w1 - np.linalg.solve(J, f[..., None])[..., 0]
+    w2 = w1 - np.linalg.solve(J, f[..., None])[..., 0]
+    # Backward Euler is the linearisation of L2 = exp(-h W2) L1 exp(h W2): the body momentum
+    # turned back by the rotation the orientation update will apply (that is what keeps the world
+    # momentum P L P^T fixed, since P_new = P_old exp(h W2)). The Newton step alone damps |L| and
+    # the energy at O(h^2) per step (measured: 0.3-0.5 % drift of world L over 10 s at 240 Hz in
+    # 3-D to 5-D). So turn L1 by the Newton estimate of w2 exactly; that keeps |L| exactly and the
+    # world momentum to O(h^3) per step. A final rescale, only where it would otherwise rise, keeps
+    # the energy from increasing (the property the implicit variant promises).
+    L1 = inertia * w1
+    L2 = alg.rotate_bivectors(alg.rotor(-dt * w2), L1)
+    w2 = L2 / inertia
+    E1 = np.einsum("ni,ni->n", L1, w1)
+    E2 = np.einsum("ni,ni->n", L2, w2)
+    s = np.sqrt(np.minimum(1.0, E1 / np.where(E2 > 0.0, E2, 1.0)))
+    return w2 * s[:, None]
 
 
 def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
