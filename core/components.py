@@ -12,7 +12,9 @@ components last). Columns are grouped as
 * accumulators:    ``force`` (n), ``torque`` (k bivector), cleared after each step;
 * settings:        ``linear_damping``, ``angular_damping``, ``kind`` (dynamic/kinematic/static);
 * collider:        ``shape_id``, ``shape_kind``, ``radius``, ``half_extents`` (n), ``layer``,
-  ``mask``, ``sensor``, and the material ``friction``, ``restitution``;
+  ``mask``, ``sensor``, and the material ``friction`` (kinetic), ``static_friction`` (the solver
+  uses it while a contact point sticks; add_body sets it equal to ``friction`` unless given),
+  ``restitution``;
 * sleeping:        ``awake``, ``rest_time``.
 
 Bookkeeping that no system touches on a hot path (the handle of each row, the shape objects, user
@@ -146,6 +148,7 @@ def body_columns(alg: Algebra) -> dict[str, tuple[tuple[int, ...], Any, Any]]:
         "mask": ((), np.uint32, ALL_LAYERS),
         "sensor": ((), np.bool_, False),
         "friction": ((), np.float64, 0.5),
+        "static_friction": ((), np.float64, 0.5),
         "restitution": ((), np.float64, 0.0),
         # sleeping
         "awake": ((), np.bool_, True),

@@ -67,6 +67,9 @@ class Settings:
         allow_sleep: let resting islands sleep.
         sleep_linear_speed: speed below which a body counts as resting, m/s.
         sleep_time: rest time before an island sleeps, s.
+        solver_batching: how contact rows are batched for the vectorised solver: "manifold"
+            (default: colour manifolds, mass splitting inside one), "point" (colour single points,
+            pure Gauss-Seidel) or "jacobi" (one batch, mass splitting); see core/solver.py.
     """
 
     dt: float = 1.0 / 60.0
@@ -85,6 +88,7 @@ class Settings:
     allow_sleep: bool = True
     sleep_linear_speed: float = 0.05
     sleep_time: float = 0.5
+    solver_batching: str = "manifold"
 
     def validated(self) -> Settings:
         for name in ("dt", "contact_hertz", "contact_damping_ratio", "max_push_speed", "sleep_time"):
@@ -98,6 +102,9 @@ class Settings:
                 raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
         if not isinstance(self.relax_iterations, (int, np.integer)) or self.relax_iterations < 0:
             raise InputError(f"settings.relax_iterations: expected an integer >= 0, got {self.relax_iterations!r}")
+        if self.solver_batching not in ("manifold", "point", "jacobi"):
+            raise InputError(f"settings.solver_batching: expected 'manifold', 'point' or 'jacobi', got "
+                             f"{self.solver_batching!r}")
         if self.gyroscopic not in (_integrate.GYRO_IMPLICIT, _integrate.GYRO_EXPLICIT, _integrate.GYRO_NONE):
             raise InputError(f"settings.gyroscopic: expected 'implicit', 'explicit' or 'none', got {self.gyroscopic!r}")
         return self
@@ -172,6 +179,7 @@ class Simulation:
         kind: str = "dynamic",
         friction: float = 0.5,
         restitution: float = 0.0,
+        static_friction: float | None = None,
         layer: int = 1,
         mask: int = ALL_LAYERS,
         linear_damping: float = 0.0,
@@ -190,7 +198,10 @@ class Simulation:
             density / mass: at most one; default density 1000 kg/m^n. Ignored for static bodies.
             kind: "dynamic", "kinematic" (moves by its velocity, never pushed) or "static".
             friction, restitution: material coefficients (>= 0; combined per contact by the
-                geometric mean and the maximum respectively).
+                geometric mean and the maximum respectively). ``friction`` is the kinetic
+                coefficient (sliding contacts).
+            static_friction: coefficient while a contact point sticks (>= friction); None means
+                "same as friction".
             layer, mask: collision filter bits: A and B collide iff (A.layer & B.mask) and
                 (B.layer & A.mask) are both non-zero.
             linear_damping, angular_damping: rates >= 0, 1/s.
@@ -199,7 +210,7 @@ class Simulation:
         alg, n = self.alg, self.dim
         row_values = self._body_values(shape, position, rotor, velocity, angular_velocity, density, mass,
                                        kind, friction, restitution, layer, mask, linear_damping,
-                                       angular_damping, sensor)
+                                       angular_damping, sensor, static_friction)
         sid = self.info.shape_id(shape)
         row_values["shape_id"] = sid
         row = self.bodies.append(row_values)
@@ -213,7 +224,8 @@ class Simulation:
 
     def _body_values(self, shape: Any, position: Any, rotor: Any, velocity: Any, angular_velocity: Any,
                      density: Any, mass: Any, kind: str, friction: Any, restitution: Any, layer: Any,
-                     mask: Any, linear_damping: Any, angular_damping: Any, sensor: Any) -> dict[str, Any]:
+                     mask: Any, linear_damping: Any, angular_damping: Any, sensor: Any,
+                     static_friction: Any = None) -> dict[str, Any]:
         """Validate every argument of add_body and build the row (no state is touched here)."""
         alg, n = self.alg, self.dim
         sdim = getattr(shape, "dim", None)
@@ -239,6 +251,10 @@ class Simulation:
             mass = positive_scalar("mass", mass)
         fr = positive_scalar("friction", friction, allow_zero=True)
         re = positive_scalar("restitution", restitution, allow_zero=True)
+        fs = fr if static_friction is None else positive_scalar("static_friction", static_friction,
+                                                                allow_zero=True)
+        if fs < fr:
+            raise InputError(f"static_friction: expected a value >= friction ({fr!r}), got {fs!r}")
         ld = positive_scalar("linear_damping", linear_damping, allow_zero=True)
         ad = positive_scalar("angular_damping", angular_damping, allow_zero=True)
         for name, bits in (("layer", layer), ("mask", mask)):
@@ -248,7 +264,7 @@ class Simulation:
         kind_code = shape_kind(shape)
         values: dict[str, Any] = {
             "position": pos, "rotor": R, "rotation": alg.rotor_to_matrix(R), "kind": code,
-            "friction": fr, "restitution": re, "layer": int(layer), "mask": int(mask),
+            "friction": fr, "static_friction": fs, "restitution": re, "layer": int(layer), "mask": int(mask),
             "linear_damping": ld, "angular_damping": ad, "sensor": bool(sensor), "shape_kind": kind_code,
             "radius": float(shape.bounding_radius) if kind_code != SHAPE_HALFSPACE else np.inf,
         }
