@@ -239,7 +239,8 @@ class Simulation:
         code = KIND_NAMES[kind]
         pos = np.zeros(n) if position is None else as_float_array("position", position, (n,))
         R = alg.identity_rotor() if rotor is None else alg.check_rotor(rotor, "rotor")
-        R = alg.rotor_normalize(R, steps=2)
+        if alg.rotor_norm_error(R) > 1e-14:  # keep rotors that are unit to rounding bit for bit
+            R = alg.rotor_normalize(R, steps=2)
         vel = np.zeros(n) if velocity is None else as_float_array("velocity", velocity, (n,))
         om = np.zeros(alg.k) if angular_velocity is None else as_float_array(
             "angular_velocity", angular_velocity, (alg.k,))
@@ -436,7 +437,9 @@ class Simulation:
         """Teleport a body (position of its local origin and/or rotor); wakes it."""
         r = self.row(handle)
         pos = None if position is None else as_float_array("position", position, (self.dim,))
-        R = None if rotor is None else self.alg.rotor_normalize(self.alg.check_rotor(rotor, "rotor"), 2)
+        R = None if rotor is None else self.alg.check_rotor(rotor, "rotor")
+        if R is not None and self.alg.rotor_norm_error(R) > 1e-14:
+            R = self.alg.rotor_normalize(R, 2)
         b = self.bodies
         if pos is not None:
             b.position[r] = pos
