@@ -1,0 +1,222 @@
+"""Islands, sleeping and waking.
+
+Invariants and choices:
+
+* An *island* is a connected component of the graph whose nodes are the dynamic bodies and whose
+  edges are this step's contact rows between two dynamic bodies (speculative rows included, so a
+  body about to land joins the island it lands on). Static and kinematic bodies are not nodes:
+  they would glue every body on the ground into one island. Components come from
+  ``scipy.sparse.csgraph.connected_components`` (a vectorised union-find), not a Python loop.
+* A dynamic body *rests* while ``|v| + |B| * radius < sleep_linear_speed`` (``|B|``, the norm of
+  the angular-velocity bivector, bounds the speed of every point at distance ``radius`` from the
+  centre); its ``rest_time`` grows by dt per resting step and drops to zero otherwise.
+* An island sleeps when every member has rested for ``sleep_time``: its bodies get
+  ``awake = False`` and zero velocity; integration and the solver skip them (zero inverse mass).
+* An island wakes, as a whole, when any member wakes: a contact with an awake dynamic body or a
+  moving kinematic body (checked by the solver before it solves, :func:`wake_touched`, so the
+  sleeping body takes part in that same solve), the Simulation's calls that touch a body
+  (impulse, force, velocity or pose change, a removed support: ``Simulation._wake_touching``), or
+  the disappearance of a body the island rested on. Which bodies slept together, and on what, is
+  kept by *handle* in ``caches["sleep"]`` (rows move when bodies are removed; handles do not), so
+  waking works even when the collision stages skip pairs of sleeping bodies.
+* A woken body restarts its rest time at zero.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from .algebra import Algebra
+from .components import DYNAMIC, KINEMATIC, Bodies
+from .contacts import ContactSet
+
+Array = NDArray[np.float64]
+IntArray = NDArray[np.int64]
+
+
+def body_speeds(bodies: Bodies) -> Array:
+    """Sleep speed (N,) of every body: |v| + |B| * radius (radius: the bounding radius)."""
+    lin = np.sqrt(np.einsum("ni,ni->n", bodies.velocity, bodies.velocity))
+    ang = np.sqrt(np.einsum("ni,ni->n", bodies.angular_velocity, bodies.angular_velocity))
+    rad = np.where(np.isfinite(bodies.radius), bodies.radius, 0.0)
+    return lin + ang * rad
+
+
+def _moving_kinematic(bodies: Bodies) -> NDArray[np.bool_]:
+    """(N,) kinematic bodies with a non-zero velocity or angular velocity."""
+    return (bodies.kind == KINEMATIC) & (np.any(bodies.velocity != 0.0, axis=1)
+                                         | np.any(bodies.angular_velocity != 0.0, axis=1))
+
+
+def island_labels(bodies: Bodies, contacts: ContactSet | None) -> IntArray:
+    """Island label (N,) of every body; bodies that are not dynamic get -1."""
+    N = bodies.count
+    dynamic = bodies.kind == DYNAMIC
+    labels = np.full(N, -1, dtype=np.int64)
+    if N == 0:
+        return labels
+    if contacts is not None and contacts.count:
+        a, b = contacts.body_a, contacts.body_b
+        both = dynamic[a] & dynamic[b]
+        a, b = a[both], b[both]
+    else:
+        a = b = np.zeros(0, dtype=np.int64)
+    graph = coo_matrix((np.ones(a.shape[0]), (a, b)), shape=(N, N))
+    _, lab = connected_components(graph, directed=False)
+    labels[dynamic] = lab[dynamic]
+    return labels
+
+
+def _state(caches: dict[str, Any]) -> dict[str, Any]:
+    st = caches.get("sleep")
+    if st is None:
+        # label: island label by handle (-1: not asleep); support: (handle asleep, handle touched)
+        st = {"label": np.zeros(0, dtype=np.int64), "support": np.zeros((0, 2), dtype=np.int64), "next": 0}
+        caches["sleep"] = st
+    return st
+
+
+def _labels_of(st: dict[str, Any], handles: IntArray) -> IntArray:
+    """Sleep-island labels (R,) of body handles (R,), -1 where none."""
+    lab = st["label"]
+    inside = handles < lab.shape[0]
+    out = np.full(handles.shape[0], -1, dtype=np.int64)
+    out[inside] = lab[handles[inside]]
+    return out
+
+
+def _wake_islands(bodies: Bodies, caches: dict[str, Any], rows: IntArray) -> None:
+    """Wake the given rows and every body that fell asleep in the same island as one of them."""
+    st = _state(caches)
+    if rows.size == 0:
+        return
+    handles = bodies.handle
+    mine = _labels_of(st, handles[rows])
+    mine = mine[mine >= 0]
+    if mine.size:
+        rows = np.union1d(rows, np.nonzero(np.isin(_labels_of(st, handles), mine))[0])
+    bodies.awake[rows] = True
+    bodies.rest_time[rows] = 0.0
+    h = handles[rows]
+    lab = st["label"]
+    lab[h[h < lab.shape[0]]] = -1
+    sup = st["support"]
+    if sup.shape[0]:
+        st["support"] = sup[~np.isin(sup[:, 0], h)]
+
+
+def wake_touched(bodies: Bodies, contacts: ContactSet | None, caches: dict[str, Any]) -> None:
+    """Wake sleeping dynamic bodies (and their islands) that share a contact with an awake
+    dynamic body or a moving kinematic body. Called by the solver before it solves."""
+    if contacts is None or contacts.count == 0:
+        return
+    kind, awake = bodies.kind, bodies.awake
+    sleeping = (kind == DYNAMIC) & ~awake
+    if not np.any(sleeping):
+        return
+    a, b = contacts.body_a, contacts.body_b
+    moving_kin = _moving_kinematic(bodies)
+    active = ((kind == DYNAMIC) & awake) | moving_kin
+    hit = np.concatenate([a[sleeping[a] & active[b]], b[sleeping[b] & active[a]]])
+    if hit.size:
+        _wake_islands(bodies, caches, np.unique(hit))
+
+
+def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
+                 caches: dict[str, Any]) -> None:
+    """Advance rest times, put resting islands to sleep and wake islands that were disturbed.
+
+    Args:
+        alg: the algebra (unused; kept for the common system signature).
+        bodies: the body table; ``awake``, ``rest_time`` and (for bodies that fall asleep)
+            ``velocity`` and ``angular_velocity`` change in place.
+        contacts: this step's contact rows, or None.
+        dt: step length, s.
+        settings: uses ``allow_sleep``, ``sleep_linear_speed``, ``sleep_time``.
+        caches: ``caches["sleep"]`` keeps the island label and supports of sleeping bodies by handle.
+    """
+    st = _state(caches)
+    N = bodies.count
+    if N == 0:
+        return
+    dynamic = bodies.kind == DYNAMIC
+    if not settings.allow_sleep:
+        if not np.all(bodies.awake[dynamic]):
+            bodies.awake[dynamic] = True
+        bodies.rest_time[:] = 0.0
+        st["label"][:] = -1
+        st["support"] = np.zeros((0, 2), dtype=np.int64)
+        return
+    handles = bodies.handle
+
+    # 1. a body that slept and has been woken (by the Simulation's calls) wakes its whole old
+    #    island; so does an island whose support has been removed
+    sup = st["support"] = st["support"][np.isin(st["support"][:, 0], handles)]
+    if sup.shape[0]:
+        gone = ~np.isin(sup[:, 1], handles)
+        if np.any(gone):
+            bodies.awake[np.isin(handles, sup[gone, 0])] = True
+    labelled = _labels_of(st, handles) >= 0
+    if np.any(labelled):
+        rewoken = np.nonzero(labelled & dynamic & bodies.awake)[0]
+        if rewoken.size:
+            _wake_islands(bodies, caches, rewoken)
+
+    # 2. rest times of awake dynamic bodies
+    awake_dyn = dynamic & bodies.awake
+    resting = body_speeds(bodies) < settings.sleep_linear_speed
+    rt = bodies.rest_time
+    rt[awake_dyn & resting] += dt
+    rt[awake_dyn & ~resting] = 0.0
+
+    # 3. islands: any awake member keeps (or makes) the whole island awake; a moving kinematic
+    #    body touching an island keeps it from resting
+    labels = island_labels(bodies, contacts)
+    nl = int(labels.max()) + 1 if N else 0
+    if nl <= 0:
+        return
+    dl = labels[dynamic]
+    if contacts is not None and contacts.count:
+        a, b = contacts.body_a, contacts.body_b
+        moving_kin = _moving_kinematic(bodies)
+        pushed = np.concatenate([a[moving_kin[b] & dynamic[a]], b[moving_kin[a] & dynamic[b]]])
+        rt[pushed] = 0.0
+    island_awake = np.zeros(nl, dtype=bool)
+    np.logical_or.at(island_awake, dl, bodies.awake[dynamic])
+    wake_now = dynamic & ~bodies.awake & island_awake[np.maximum(labels, 0)]
+    if np.any(wake_now):
+        _wake_islands(bodies, caches, np.nonzero(wake_now)[0])
+    min_rest = np.full(nl, np.inf)
+    np.minimum.at(min_rest, dl, rt[dynamic])
+
+    # 4. islands that have all rested long enough fall asleep
+    falls = dynamic & bodies.awake & (min_rest[np.maximum(labels, 0)] >= settings.sleep_time)
+    if not np.any(falls):
+        return
+    rows = np.nonzero(falls)[0]
+    bodies.awake[rows] = False
+    bodies.velocity[rows] = 0.0
+    bodies.angular_velocity[rows] = 0.0
+    # remember who slept together (fresh labels per call) and what they rest on
+    h = handles[rows]
+    lab = st["label"]
+    if lab.shape[0] <= h.max():
+        grown = np.full(max(16, 2 * int(h.max()) + 1), -1, dtype=np.int64)
+        grown[: lab.shape[0]] = lab
+        lab = st["label"] = grown
+    lab[h] = st["next"] + labels[rows]
+    st["next"] += nl
+    if contacts is not None and contacts.count:
+        a, b = contacts.body_a, contacts.body_b
+        pa = np.concatenate([handles[a[falls[a]]], handles[b[falls[b]]]])
+        pb = np.concatenate([handles[b[falls[a]]], handles[a[falls[b]]]])
+        st["support"] = np.unique(np.concatenate([st["support"], np.stack([pa, pb], axis=1)]), axis=0)
+    del alg
+
+
+__all__ = ["body_speeds", "island_labels", "update_sleep", "wake_touched"]
