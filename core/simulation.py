@@ -326,6 +326,10 @@ class Simulation:
         b = self.bodies
         b.awake[row] = True
         b.rest_time[row] = 0.0
+        if "sleep" in self.caches:  # islands asleep on this body: the collision stages skip them
+            from .sleep import wake_resting_on
+
+            wake_resting_on(b, self.caches, row)
         c = self.contacts
         if c is None or getattr(c, "count", 0) == 0:
             return

@@ -127,6 +127,19 @@ def wake_touched(bodies: Bodies, contacts: ContactSet | None, caches: dict[str, 
         _wake_islands(bodies, caches, np.unique(hit))
 
 
+def wake_resting_on(bodies: Bodies, caches: dict[str, Any], row: int) -> None:
+    """Wake every island that fell asleep touching body ``row`` (its support moved, was pushed or
+    is about to be removed). The collision stages skip pairs of a sleeping and a static body, so
+    this step's contacts may not show them; the sleep cache does."""
+    st = caches.get("sleep")
+    if st is None or st["support"].shape[0] == 0:
+        return
+    sup = st["support"]
+    sleepers = sup[sup[:, 1] == bodies.handle[row], 0]
+    if sleepers.size:
+        _wake_islands(bodies, caches, np.nonzero(np.isin(bodies.handle, sleepers))[0])
+
+
 def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
                  caches: dict[str, Any]) -> None:
     """Advance rest times, put resting islands to sleep and wake islands that were disturbed.
@@ -195,7 +208,8 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
     np.minimum.at(min_rest, dl, rt[dynamic])
 
     # 4. islands that have all rested long enough fall asleep
-    falls = dynamic & bodies.awake & (min_rest[np.maximum(labels, 0)] >= settings.sleep_time)
+    # (a relative tolerance: rest times are sums of dt and must not miss sleep_time by rounding)
+    falls = dynamic & bodies.awake & (min_rest[np.maximum(labels, 0)] >= settings.sleep_time * (1.0 - 1e-9))
     if not np.any(falls):
         return
     rows = np.nonzero(falls)[0]
@@ -219,4 +233,4 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
     del alg
 
 
-__all__ = ["body_speeds", "island_labels", "update_sleep", "wake_touched"]
+__all__ = ["body_speeds", "island_labels", "update_sleep", "wake_resting_on", "wake_touched"]

@@ -23,10 +23,15 @@ Coherence", GDC 2005; "Soft Constraints", GDC 2011; the soft-step ordering of hi
    ``restitution_threshold`` and that took a normal impulse get a separating speed of e times it.
    A speculative row that took no impulse (the bodies do not meet within the step) never bounces.
 6. *Position push*: positions and rotors are moved by dt times (velocity after step 3 minus the
-   final velocity), so that together with ``integrate_positions`` the bodies move with the biased
-   velocity, as in the soft step, while the velocities they keep carry no push (the push adds no
-   kinetic energy). Our pipeline integrates positions after the solver, so this displacement is
-   applied here.
+   velocity after step 4), so that together with ``integrate_positions`` the bodies move with the
+   biased velocity, as in the soft step, while the velocities they keep carry no push (the push
+   adds no kinetic energy). Our pipeline integrates positions after the solver, so this
+   displacement is applied here. Rows within the slop are rigid in step 3 too, so where nothing
+   overlaps the two velocities agree and nothing is pushed: positions then follow the final
+   velocities exactly, which keeps linear and angular momentum of free collisions conserved.
+   (Rejected: integrating positions with the pre-restitution velocity as the soft step does; in
+   our order it displaces bouncing bodies against their final velocity and breaks the
+   conservation of angular momentum about the origin in glancing collisions.)
 
 Friction is one vector impulse per point in the tangent space, solved with its own
 (n-1) x (n-1) effective-mass block and then scaled back onto the ball ``|lambda_t| <= mu
@@ -339,8 +344,12 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     rate, mscale, iscale = soft_coefficients(hertz, float(settings.contact_damping_ratio), dt)
     push = np.maximum(rate * np.minimum(sep + settings.linear_slop, 0.0), -settings.max_push_speed)
     bias_on = np.where(spec, sep / dt, push)
-    ms_on = np.where(spec, 1.0, mscale)
-    is_on = np.where(spec, 0.0, iscale)
+    # only rows with overlap to correct are soft: a row within the slop has no position error,
+    # and keeping it rigid makes the biased and relaxed velocities agree, so no push (and no
+    # change of momentum by moved positions) appears where nothing overlaps
+    soft = push < 0.0
+    ms_on = np.where(soft, mscale, 1.0)
+    is_on = np.where(soft, iscale, 0.0)
     bias_off = np.where(spec, sep / dt, 0.0)
     ones, zeros = np.ones_like(sep), np.zeros_like(sep)
 
@@ -398,6 +407,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     X_biased = X.copy()
     for it in range(relax):
         sweep(bias_off, ones, zeros, track=it == relax - 1)
+    # the push: what the bias moved, taken out of the velocities by the relax pass
+    moved = np.nonzero(dyn)[0]
+    push_dX = dt * (X_biased[moved] - X[moved])
 
     # restitution: one pass over the rows that approached fast and met within the step
     e = c.restitution[ridx]
@@ -415,10 +427,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
             lam_n[s] = new_n
             _scatter(X, ia, ib, Xa + dln[:, None] * han, Xb + dln[:, None] * hbn, Xa, Xb, unique_slots)
 
-    moved = np.nonzero(dyn)[0]
     bodies.velocity[moved] = X[moved, :n]
     bodies.angular_velocity[moved] = X[moved, n:]
-    _push_positions(alg, bodies, moved, dt * (X_biased[moved] - X[moved]))
+    _push_positions(alg, bodies, moved, push_dX)
 
     # back to the caller's row order; tangent impulses as world vectors
     inv_perm = np.empty_like(perm)
