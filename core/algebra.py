@@ -568,9 +568,15 @@ class Algebra:
         """
         M = as_float_array("M", M, (self.n, self.n))
         eye = np.eye(self.n)
+        A = M + eye
+        # an exactly singular M + 1 makes the batched solve raise for the whole batch: solve those
+        # items against 1 instead; they are flagged bad and take the slow path below
+        sing = np.abs(np.linalg.det(A)) <= 1e-14
+        A = np.where(sing[..., None, None], eye, A)
         with np.errstate(all="ignore"):
-            C = np.linalg.solve(M + eye, M - eye) if M.size else np.zeros_like(M)
-        bad = ~np.all(np.isfinite(C), axis=(-1, -2)) | (np.max(np.abs(C), axis=(-1, -2), initial=0.0) > 1e6)
+            C = np.linalg.solve(A, M - eye) if M.size else np.zeros_like(M)
+        bad = sing | ~np.all(np.isfinite(C), axis=(-1, -2))
+        bad |= np.max(np.abs(C), axis=(-1, -2), initial=0.0) > 1e6
         C = np.where(bad[..., None, None], 0.0, C)
         tau, units = self.planes(unskew(C))
         B = np.einsum("...m,...mk->...k", 2.0 * np.arctan(tau), units)
@@ -588,17 +594,20 @@ class Algebra:
         for idx in range(flat.shape[0]):  # rare path (exact half turns), not on any hot path
             T, Z = schur(flat[idx], output="real")
             L = np.zeros_like(T)
+            neg = []  # 1x1 blocks with eigenvalue -1: Schur need not put them next to each other
             i = 0
             while i < self.n:
                 if i + 1 < self.n and abs(T[i + 1, i]) > 1e-12:
                     ang = np.arctan2(T[i + 1, i], T[i, i])
                     L[i + 1, i], L[i, i + 1] = ang, -ang
                     i += 2
-                elif T[i, i] < 0 and i + 1 < self.n and T[i + 1, i + 1] < 0:
-                    L[i + 1, i], L[i, i + 1] = np.pi, -np.pi
-                    i += 2
                 else:
+                    if T[i, i] < 0:
+                        neg.append(i)
                     i += 1
+            # det +1 makes their count even; any pairing of them spans half-turn planes
+            for a, b in zip(neg[::2], neg[1::2], strict=False):
+                L[b, a], L[a, b] = np.pi, -np.pi
             W = Z @ L @ Z.T
             if not np.allclose(W, -W.T, atol=1e-9):
                 W = np.real(logm(flat[idx]))
