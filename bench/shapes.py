@@ -56,15 +56,32 @@ def run_shape_bench(repeats: int = 5) -> list[dict[str, Any]]:
     rows: list[dict[str, Any]] = []
     for name, build in (("24-cell", cell_24), ("600-cell", cell_600), ("120-cell", cell_120)):
         shape = build()
-        detail = f"{len(shape.vertices)} vertices, {len(shape.facet_normals)} facets, {len(shape.edges)} edges"
+        detail = (
+            f"{len(shape.vertices)} vertices, {len(shape.facet_normals)} facets, {len(shape.edges)} edges"
+        )
         rows.append({"name": f"{name} hull and faces", "seconds": _best(build, repeats), "detail": detail})
-        rows.append({"name": f"{name} mass properties", "seconds": _best(_uncached_mass(shape), repeats),
-                     "detail": detail})
+        rows.append(
+            {
+                "name": f"{name} mass properties",
+                "seconds": _best(_uncached_mass(shape), repeats),
+                "detail": detail,
+            }
+        )
     mesh = sphere_mesh_4d()
     V, C = np.asarray(mesh.vertices), np.asarray(mesh.cells)
     detail = f"{len(C)} cells, {len(V)} vertices"
-    rows.append({"name": "4-D mesh validation (closed, oriented)",
-                 "seconds": _best(lambda: SimplexMesh(V, C), repeats), "detail": detail})
-    rows.append({"name": "4-D mesh mass properties", "seconds": _best(_uncached_mass(mesh), repeats),
-                 "detail": detail + "; target < 0.020 s"})
+    rows.append(
+        {
+            "name": "4-D mesh validation (closed, oriented)",
+            "seconds": _best(lambda: SimplexMesh(V, C), repeats),
+            "detail": detail,
+        }
+    )
+    rows.append(
+        {
+            "name": "4-D mesh mass properties",
+            "seconds": _best(_uncached_mass(mesh), repeats),
+            "detail": detail + "; target < 0.020 s",
+        }
+    )
     return rows

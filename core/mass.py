@@ -114,7 +114,9 @@ def rotate_inertia(inertia: Any, rotation: Any) -> Array:
     Ib = np.asarray(inertia, dtype=np.float64)
     C2 = second_compound(M)
     if C2.shape[-1] != Ib.shape[-1]:
-        raise InputError(f"rotation: a rotation of shape {M.shape} does not fit an inertia map of shape {Ib.shape}")
+        raise InputError(
+            f"rotation: a rotation of shape {M.shape} does not fit an inertia map of shape {Ib.shape}"
+        )
     return np.asarray(np.einsum("...ab,...bc,...dc->...ad", C2, Ib, C2))
 
 
@@ -220,7 +222,9 @@ class MassProperties:
         return self.mass / self.volume
 
     @classmethod
-    def from_moments(cls, volume: float, centroid: Any, covariance: Any, density: float = 1.0) -> MassProperties:
+    def from_moments(
+        cls, volume: float, centroid: Any, covariance: Any, density: float = 1.0
+    ) -> MassProperties:
         """Build the record from the volume, centroid and density-1 covariance of a solid.
 
         Args:
@@ -272,7 +276,9 @@ class MassProperties:
 def resolve_density(volume: float, density: Any = None, mass: Any = None) -> float:
     """Density from exactly one of ``density`` or ``mass`` (default density 1.0), validated."""
     if density is not None and mass is not None:
-        raise InputError(f"density, mass: give one of them, not both (got density={density!r}, mass={mass!r})")
+        raise InputError(
+            f"density, mass: give one of them, not both (got density={density!r}, mass={mass!r})"
+        )
     if mass is not None:
         return positive_scalar("mass", mass) / volume
     return positive_scalar("density", 1.0 if density is None else density)
@@ -334,10 +340,14 @@ def boundary_moments(vertices: Any, cells: Any, reference: Any = None) -> tuple[
     s = X.sum(axis=1)  # (C, n): A 1
     first = (det @ s) / math.factorial(n + 1)
     # sum_c det_c (A A^T + (A 1)(A 1)^T) / (n+2)!; A A^T = X^T X with X's rows the vertices
-    second = (np.einsum("c,cai,caj->ij", det, X, X) + np.einsum("c,ci,cj->ij", det, s, s)) / math.factorial(n + 2)
+    second = (np.einsum("c,cai,caj->ij", det, X, X) + np.einsum("c,ci,cj->ij", det, s, s)) / math.factorial(
+        n + 2
+    )
     if not volume > 0.0:
-        raise InputError(f"cells: the boundary encloses volume {volume:.6g}; expected a positive volume "
-                         "(outward-oriented cells around a solid)")
+        raise InputError(
+            f"cells: the boundary encloses volume {volume:.6g}; expected a positive volume "
+            "(outward-oriented cells around a solid)"
+        )
     d = first / volume
     cov = second - volume * np.outer(d, d)
     return volume, ref + d, cov
@@ -372,13 +382,20 @@ def combine_mass_properties(parts: list[tuple[MassProperties, Array, Array]]) ->
     d = cen_parts - centroid
     cov_parts = np.einsum("pij,pjk,plk->pil", M, np.stack([p.covariance for p, _, _ in parts]), M)
     cov = (cov_parts + masses[:, None, None] * d[:, :, None] * d[:, None, :]).sum(axis=0)
-    inertia = shift_inertia(rotate_inertia(np.stack([p.inertia for p, _, _ in parts]), M), masses, d).sum(axis=0)
+    inertia = shift_inertia(rotate_inertia(np.stack([p.inertia for p, _, _ in parts]), M), masses, d).sum(
+        axis=0
+    )
     rec = MassProperties.from_moments(volume, centroid, cov / (mass / volume), density=mass / volume)
     # from_moments derives the inertia from the covariance; keep the one built by the transform
     # rules (they agree to rounding, which the tests check) so Compound really uses them.
     return MassProperties(
-        volume=rec.volume, mass=mass, centroid=rec.centroid, covariance=rec.covariance,
-        inertia=_readonly(0.5 * (inertia + inertia.T)), principal_moments=rec.principal_moments,
-        principal_axes=rec.principal_axes, principal_rotor=rec.principal_rotor,
+        volume=rec.volume,
+        mass=mass,
+        centroid=rec.centroid,
+        covariance=rec.covariance,
+        inertia=_readonly(0.5 * (inertia + inertia.T)),
+        principal_moments=rec.principal_moments,
+        principal_axes=rec.principal_axes,
+        principal_rotor=rec.principal_rotor,
         principal_covariance=rec.principal_covariance,
     )

@@ -105,8 +105,12 @@ def parse_noff(text: str, *, where: str = "nOFF") -> NoffData:
             raise lines.fail(no, "the dimension n (an integer >= 2)", str(n))
         rest = rest[1:]
     elif head.endswith("OFF"):
-        raise lines.fail(no, "the header 'nOFF' or 'OFF' (vertex colours, normals, texture coordinates "
-                         "and homogeneous coordinates are not supported)", repr(head))
+        raise lines.fail(
+            no,
+            "the header 'nOFF' or 'OFF' (vertex colours, normals, texture coordinates "
+            "and homogeneous coordinates are not supported)",
+            repr(head),
+        )
     else:
         raise lines.fail(no, "the header 'nOFF' or 'OFF'", repr(head))
     if rest:
@@ -139,8 +143,9 @@ def parse_noff(text: str, *, where: str = "nOFF") -> NoffData:
         no, tok = lines.next(f"cell {c} of {nc} ('m i_0 ... i_(m-1)')")
         m = _int(lines, no, tok[0], f"the vertex count of cell {c}")
         if m < 1 or len(tok) < m + 1:
-            raise lines.fail(no, f"cell {c} as a vertex count m >= 1 followed by m indices",
-                             repr(" ".join(tok)))
+            raise lines.fail(
+                no, f"cell {c} as a vertex count m >= 1 followed by m indices", repr(" ".join(tok))
+            )
         idx = [_int(lines, no, t, f"integer vertex indices for cell {c}") for t in tok[1 : m + 1]]
         bad = [i for i in idx if not 0 <= i < nv]
         if bad:
@@ -199,10 +204,15 @@ def format_noff(shape: SimplexMesh | ConvexPolytope) -> str:
     if isinstance(shape, SimplexMesh):
         V, cells, ne = np.asarray(shape.vertices), [np.asarray(c) for c in shape.cells], 0
     elif isinstance(shape, ConvexPolytope):
-        V, cells, ne = np.asarray(shape.vertices), [np.asarray(f) for f in shape.facet_vertices], len(shape.edges)
+        V, cells, ne = (
+            np.asarray(shape.vertices),
+            [np.asarray(f) for f in shape.facet_vertices],
+            len(shape.edges),
+        )
     else:
-        raise InputTypeError(f"shape: expected a SimplexMesh or ConvexPolytope (Box included), got "
-                             f"{type(shape).__name__}")
+        raise InputTypeError(
+            f"shape: expected a SimplexMesh or ConvexPolytope (Box included), got {type(shape).__name__}"
+        )
     n = V.shape[1]
     out = ["OFF" if n == 3 else f"nOFF\n{n}", f"{len(V)} {len(cells)} {ne}"]
     out += [" ".join(repr(float(x)) for x in row) for row in V]

@@ -31,8 +31,9 @@ PHI = (1.0 + math.sqrt(5.0)) / 2.0  # golden ratio
 def _scale(edge: Any, circumradius: Any, unit_edge: float, unit_radius: float) -> float:
     """Factor taking coordinates with edge ``unit_edge`` and circumradius ``unit_radius`` to the request."""
     if edge is not None and circumradius is not None:
-        raise InputError(f"edge, circumradius: give one size, not both (got edge={edge!r}, "
-                         f"circumradius={circumradius!r})")
+        raise InputError(
+            f"edge, circumradius: give one size, not both (got edge={edge!r}, circumradius={circumradius!r})"
+        )
     if circumradius is not None:
         return positive_scalar("circumradius", circumradius) / unit_radius
     return positive_scalar("edge", 1.0 if edge is None else edge) / unit_edge
@@ -44,7 +45,7 @@ def _signed(base: tuple[float, ...]) -> list[tuple[float, ...]]:
     out = []
     for signs in itertools.product((1.0, -1.0), repeat=len(nz)):
         v = list(base)
-        for i, s in zip(nz, signs):
+        for i, s in zip(nz, signs, strict=True):
             v[i] *= s
         out.append(tuple(v))
     return out
@@ -109,11 +110,13 @@ def cell_600(*, edge: Any = None, circumradius: Any = None) -> ConvexPolytope:
     Standard coordinates: the 16 points ``(+-1/2, +-1/2, +-1/2, +-1/2)``, the 8 permutations of
     ``(+-1, 0, 0, 0)`` and the 96 even permutations of ``(+-phi, +-1, +-1/phi, 0) / 2``.
     """
-    V = np.concatenate([
-        _permuted((0.5, 0.5, 0.5, 0.5), even_only=False),
-        _permuted((1.0, 0.0, 0.0, 0.0), even_only=False),
-        _permuted((PHI / 2, 0.5, 1 / (2 * PHI), 0.0), even_only=True),
-    ])
+    V = np.concatenate(
+        [
+            _permuted((0.5, 0.5, 0.5, 0.5), even_only=False),
+            _permuted((1.0, 0.0, 0.0, 0.0), even_only=False),
+            _permuted((PHI / 2, 0.5, 1 / (2 * PHI), 0.0), even_only=True),
+        ]
+    )
     f = _scale(edge, circumradius, 1.0 / PHI, 1.0)
     return ConvexPolytope(V * f)
 
@@ -127,14 +130,16 @@ def cell_120(*, edge: Any = None, circumradius: Any = None) -> ConvexPolytope:
     ``(+-phi^-1, +-1, +-phi, +-2)``.
     """
     s5 = math.sqrt(5.0)
-    V = np.concatenate([
-        _permuted((0.0, 0.0, 2.0, 2.0), even_only=False),
-        _permuted((1.0, 1.0, 1.0, s5), even_only=False),
-        _permuted((PHI**-2, PHI, PHI, PHI), even_only=False),
-        _permuted((1 / PHI, 1 / PHI, 1 / PHI, PHI**2), even_only=False),
-        _permuted((0.0, PHI**-2, 1.0, PHI**2), even_only=True),
-        _permuted((0.0, 1 / PHI, PHI, s5), even_only=True),
-        _permuted((1 / PHI, 1.0, PHI, 2.0), even_only=True),
-    ])
+    V = np.concatenate(
+        [
+            _permuted((0.0, 0.0, 2.0, 2.0), even_only=False),
+            _permuted((1.0, 1.0, 1.0, s5), even_only=False),
+            _permuted((PHI**-2, PHI, PHI, PHI), even_only=False),
+            _permuted((1 / PHI, 1 / PHI, 1 / PHI, PHI**2), even_only=False),
+            _permuted((0.0, PHI**-2, 1.0, PHI**2), even_only=True),
+            _permuted((0.0, 1 / PHI, PHI, s5), even_only=True),
+            _permuted((1 / PHI, 1.0, PHI, 2.0), even_only=True),
+        ]
+    )
     f = _scale(edge, circumradius, 2.0 / PHI**2, math.sqrt(8.0))
     return ConvexPolytope(V * f)

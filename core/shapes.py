@@ -164,7 +164,7 @@ def _facet_edges(edges: IntArray, facet_vertices: Sequence[IntArray], nverts: in
     a, b, g = a[order], b[order], g[order]
     bounds = np.searchsorted(g, np.arange(len(facet_vertices) + 1))
     pairs = np.stack([a, b], axis=1)
-    return tuple(_frozen(pairs[bounds[f]:bounds[f + 1]], np.intp) for f in range(len(facet_vertices)))
+    return tuple(_frozen(pairs[bounds[f] : bounds[f + 1]], np.intp) for f in range(len(facet_vertices)))
 
 
 class Shape:
@@ -287,7 +287,8 @@ class ConvexPolytope(Shape):
 
     Attributes:
         vertices: (V, n) float, the true vertices, in the order of the input points they came from.
-        facet_normals: (F, n) float, outward unit normals; the solid is ``facet_normals @ x <= facet_offsets``.
+        facet_normals: (F, n) float, outward unit normals; the solid is
+            ``facet_normals @ x <= facet_offsets``.
         facet_offsets: (F,) float.
         facet_vertices: tuple of F int arrays, the vertex indices of each (merged) facet; for n = 2 the
             segment runs counter-clockwise, for n = 3 the polygon is counter-clockwise seen from outside.
@@ -315,11 +316,13 @@ class ConvexPolytope(Shape):
         if P.shape[0] < n + 1:
             raise InputError(f"points: expected at least n + 1 = {n + 1} distinct points, got {P.shape[0]}")
         parts = _hull_parts(P)
-        self._set(_dim=n, _cache={"triangulation": parts.pop("triangulation")}, **parts)
+        self._set(_dim=n, _cache={"qhull_triangulation": parts.pop("triangulation")}, **parts)
 
     def __repr__(self) -> str:
-        return (f"{type(self).__name__}(dim={self._dim}, vertices={len(self.vertices)}, "
-                f"facets={len(self.facet_normals)}, edges={len(self.edges)})")
+        return (
+            f"{type(self).__name__}(dim={self._dim}, vertices={len(self.vertices)}, "
+            f"facets={len(self.facet_normals)}, edges={len(self.edges)})"
+        )
 
     @property
     def bounding_radius(self) -> float:
@@ -335,10 +338,18 @@ class ConvexPolytope(Shape):
         return self.vertices.min(axis=0), self.vertices.max(axis=0)
 
     def boundary_triangulation(self) -> IntArray:
-        """(S, n) int: the boundary split into outward-oriented (n-1)-simplices (vertex indices)."""
+        """(S, n) int: the boundary as outward-oriented (n-1)-simplices (vertex indices) that meet
+        face to face, so that they form a valid :class:`SimplexMesh`.
+
+        A simplicial polytope's facets are used as they are. Otherwise each face is split by the
+        pulling rule: a face is coned from its lowest-index vertex over the (recursively split)
+        faces of it that miss that vertex. The split of a face depends on the face alone, so two
+        facets split their shared ridge the same way. (qhull's own triangulation, used for the mass
+        properties, splits every facet on its own and need not match across ridges in n >= 4.)
+        """
         tri = self._cache.get("triangulation")
         if tri is None:
-            tri = _frozen(_hull_parts(np.asarray(self.vertices))["triangulation"], np.intp)
+            tri = _frozen(_pulling_triangulation(self), np.intp)
             self._cache["triangulation"] = tri
         return np.asarray(tri)
 
@@ -368,7 +379,10 @@ class ConvexPolytope(Shape):
         elif k == n - 1:
             out = [np.sort(f) for f in self.facet_vertices]
         elif k == n - 2:
-            out = [np.intersect1d(self.facet_vertices[f], self.facet_vertices[g]) for f, g in self.facet_adjacency]
+            out = [
+                np.intersect1d(self.facet_vertices[f], self.facet_vertices[g])
+                for f, g in self.facet_adjacency
+            ]
         else:
             seen: dict[tuple[int, ...], IntArray] = {}
             for f, fv in enumerate(self.facet_vertices):
@@ -382,9 +396,63 @@ class ConvexPolytope(Shape):
         return frozen
 
     def _compute_mass_properties(self) -> MassProperties:
-        # cone the boundary triangulation from the vertex mean (an interior point)
-        vol, cen, cov = boundary_moments(self.vertices, self.boundary_triangulation())
+        # cone qhull's boundary triangulation (facets split one by one: exact for integration) from
+        # the vertex mean, an interior point
+        vol, cen, cov = boundary_moments(self.vertices, self._cache["qhull_triangulation"])
         return MassProperties.from_moments(vol, cen, cov)
+
+
+def _pulling_triangulation(poly: ConvexPolytope) -> IntArray:
+    """Face-to-face triangulation of the boundary (see ConvexPolytope.boundary_triangulation)."""
+    n = poly.dim
+    V = np.asarray(poly.vertices)
+    nv = len(V)
+    if all(len(f) == n for f in poly.facet_vertices):
+        tri = np.stack(poly.facet_vertices).astype(np.intp)
+    else:
+        faces = {d: poly.faces(d) for d in range(1, n)}
+
+        def incidence(d: int) -> sparse.csr_matrix:
+            fs = faces[d]
+            rows = np.repeat(np.arange(len(fs)), [len(f) for f in fs])
+            return sparse.csr_matrix((np.ones(len(rows)), (rows, np.concatenate(fs))), shape=(len(fs), nv))
+
+        # subfaces[d][j]: the (d-1)-faces inside d-face j (counts of shared vertices = subface size)
+        inc = {d: incidence(d) for d in range(1, n)}
+        subfaces: dict[int, list[IntArray]] = {}
+        for d in range(2, n):
+            shared = (inc[d - 1] @ inc[d].T).tocsc()
+            size = np.array([len(f) for f in faces[d - 1]])
+            lists = []
+            for j in range(len(faces[d])):
+                rows = shared.indices[shared.indptr[j] : shared.indptr[j + 1]]
+                vals = shared.data[shared.indptr[j] : shared.indptr[j + 1]]
+                lists.append(rows[vals == size[rows]])
+            subfaces[d] = lists
+        memo: dict[tuple[int, int], list[tuple[int, ...]]] = {}
+
+        def split(d: int, j: int) -> list[tuple[int, ...]]:
+            key = (d, j)
+            if key not in memo:
+                f = faces[d][j]
+                if d == 1 or len(f) == d + 1:  # an edge or a simplex face splits into itself
+                    memo[key] = [tuple(int(i) for i in f)]
+                else:
+                    v = int(f.min())
+                    memo[key] = [
+                        (v,) + s
+                        for g in subfaces[d][j]
+                        if v not in faces[d - 1][g]
+                        for s in split(d - 1, int(g))
+                    ]
+            return memo[key]
+
+        tri = np.array([s for j in range(len(faces[n - 1])) for s in split(n - 1, j)], dtype=np.intp)
+    # outward orientation: positive cone volume from the vertex mean (an interior point)
+    det = np.linalg.det(V[tri] - V.mean(axis=0))
+    flip = det < 0.0
+    tri[flip, 0], tri[flip, 1] = tri[flip, 1].copy(), tri[flip, 0].copy()
+    return tri
 
 
 def _facet_polytope(vertices: Array, normal: Array, idx: IntArray) -> ConvexPolytope:
@@ -405,11 +473,14 @@ def _hull_parts(P: Array) -> dict[str, Any]:
         hull = ConvexHull(P)
     except QhullError as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else "qhull error"
-        raise InputError(f"points: the {N} points do not span {n}-D (they are flat, zero {n}-volume); "
-                         f"qhull: {first}") from exc
+        raise InputError(
+            f"points: the {N} points do not span {n}-D (they are flat, zero {n}-volume); qhull: {first}"
+        ) from exc
     if not hull.volume > 1e-12 * size**n:
-        raise InputError(f"points: the hull has {n}-volume {hull.volume:.3g}, which is flat for points "
-                         f"of size {size:.3g}; expected points spanning {n}-D")
+        raise InputError(
+            f"points: the hull has {n}-volume {hull.volume:.3g}, which is flat for points "
+            f"of size {size:.3g}; expected points spanning {n}-D"
+        )
 
     # -- merge triangulation simplices into true facets --------------------------------------------
     eq = hull.equations
@@ -429,9 +500,7 @@ def _hull_parts(P: Array) -> dict[str, Any]:
 
     # -- facet/point incidence from the simplices of each facet -----------------------------------
     simp = hull.simplices
-    inc = sparse.csr_matrix(
-        (np.ones(simp.size), (np.repeat(label, n), simp.ravel())), shape=(nf, N)
-    )
+    inc = sparse.csr_matrix((np.ones(simp.size), (np.repeat(label, n), simp.ravel())), shape=(nf, N))
     inc.sum_duplicates()
     inc.data[:] = 1.0
     fi, pi = inc.nonzero()
@@ -507,10 +576,16 @@ class Box(ConvexPolytope):
     half_extents: Array
 
     def __init__(self, half_extents: Any) -> None:
-        h = np.asarray(half_extents, dtype=np.float64) if not isinstance(half_extents, np.ndarray) else half_extents
+        h = (
+            np.asarray(half_extents, dtype=np.float64)
+            if not isinstance(half_extents, np.ndarray)
+            else half_extents
+        )
         if h.ndim != 1 or h.shape[0] < 2:
-            raise InputError(f"half_extents: expected one half-extent per axis, shape (n,) with n >= 2, "
-                             f"got shape {np.shape(h)}")
+            raise InputError(
+                f"half_extents: expected one half-extent per axis, shape (n,) with n >= 2, "
+                f"got shape {np.shape(h)}"
+            )
         h = as_float_array("half_extents", h, (h.shape[0],))
         if np.any(h <= 0.0):
             i = int(np.flatnonzero(h <= 0.0)[0])
@@ -521,7 +596,9 @@ class Box(ConvexPolytope):
         V = np.where(bits == 1, h, -h)
         normals = np.concatenate([np.eye(n), -np.eye(n)])
         facet_vertices = [_orient_facet(V, normals[i], np.flatnonzero(bits[:, i] == 1)) for i in range(n)]
-        facet_vertices += [_orient_facet(V, normals[n + i], np.flatnonzero(bits[:, i] == 0)) for i in range(n)]
+        facet_vertices += [
+            _orient_facet(V, normals[n + i], np.flatnonzero(bits[:, i] == 0)) for i in range(n)
+        ]
         lo = np.concatenate([idx[bits[:, i] == 0] for i in range(n)])
         hi = np.concatenate([idx[bits[:, i] == 0] | (1 << i) for i in range(n)])
         edges = np.stack([lo, hi], axis=1)
@@ -566,7 +643,9 @@ class Box(ConvexPolytope):
         out = []
         for free in itertools.combinations(range(n), k):
             fixed = [i for i in range(n) if i not in free]
-            sub = np.array([sum(1 << free[j] for j in range(k) if (m >> j) & 1) for m in range(1 << k)], dtype=np.intp)
+            sub = np.array(
+                [sum(1 << free[j] for j in range(k) if (m >> j) & 1) for m in range(1 << k)], dtype=np.intp
+            )
             for bitsv in range(1 << len(fixed)):
                 base = sum(1 << fixed[j] for j in range(len(fixed)) if (bitsv >> j) & 1)
                 out.append(_frozen(np.sort(base + sub), np.intp))
@@ -642,34 +721,42 @@ class SimplexMesh(Shape):
         if F.dtype.kind not in "iu" or F.dtype == np.bool_:
             raise InputTypeError(f"cells: expected an integer array of vertex indices, got dtype {F.dtype}")
         if F.ndim != 2 or F.shape[1] != n or F.shape[0] == 0:
-            raise InputError(f"cells: expected shape (C, {n}) (each cell an ({n - 1})-simplex of {n} vertex "
-                             f"indices, C >= 1), got shape {F.shape}")
+            raise InputError(
+                f"cells: expected shape (C, {n}) (each cell an ({n - 1})-simplex of {n} vertex "
+                f"indices, C >= 1), got shape {F.shape}"
+            )
         F = F.astype(np.intp)
         bad = np.flatnonzero(np.any((F < 0) | (F >= nv), axis=1))
         if bad.size:
-            raise InputError(f"cells: vertex indices must lie in 0..{nv - 1}; cells {_cells_list(bad)} "
-                             f"do not (first: {F[bad[0]].tolist()})")
+            raise InputError(
+                f"cells: vertex indices must lie in 0..{nv - 1}; cells {_cells_list(bad)} "
+                f"do not (first: {F[bad[0]].tolist()})"
+            )
         Fs = np.sort(F, axis=1)
         bad = np.flatnonzero(np.any(Fs[:, 1:] == Fs[:, :-1], axis=1))
         if bad.size:
-            raise InputError(f"cells: cells {_cells_list(bad)} repeat a vertex (first: {F[bad[0]].tolist()}); "
-                             "expected n distinct vertices per cell")
+            raise InputError(
+                f"cells: cells {_cells_list(bad)} repeat a vertex (first: {F[bad[0]].tolist()}); "
+                "expected n distinct vertices per cell"
+            )
         _check_closed_oriented(F, nv)
         ref = V[np.unique(F)].mean(axis=0)
         vol = float(np.linalg.det(V[F] - ref).sum()) / math.factorial(n)
         if not abs(vol) > 0.0:
-            raise InputError("cells: the boundary encloses zero volume; expected a closed boundary around a solid")
+            raise InputError(
+                "cells: the boundary encloses zero volume; expected a closed boundary around a solid"
+            )
         if vol < 0.0:
             if not flip_inside_out:
                 raise InputError(
                     f"cells: the boundary is inside-out (enclosed volume {vol:.6g} < 0: the cells face "
                     "inward); swap two vertices of every cell (e.g. cells[:, [1, 0, 2, ...]]) or pass "
-                    "flip_inside_out=True")
+                    "flip_inside_out=True"
+                )
             F = F.copy()
             F[:, [0, 1]] = F[:, [1, 0]]
         used = np.unique(F)
-        self._set(_dim=n, vertices=_frozen(V), cells=_frozen(F, np.intp), _cache={},
-                  _used=_frozen(V[used]))
+        self._set(_dim=n, vertices=_frozen(V), cells=_frozen(F, np.intp), _cache={}, _used=_frozen(V[used]))
 
     def __repr__(self) -> str:
         return f"SimplexMesh(dim={self._dim}, vertices={len(self.vertices)}, cells={len(self.cells)})"
@@ -720,14 +807,16 @@ def _check_closed_oriented(F: IntArray, nverts: int) -> None:
         raise InputError(
             f"cells: the boundary is not closed: every {n - 2}-face must be shared by exactly 2 cells, "
             f"but face {faces[e].tolist()} is shared by {int(cnt[inv[e]])}; cells at such faces: "
-            f"{_cells_list(cell_of[wrong])}")
+            f"{_cells_list(cell_of[wrong])}"
+        )
     total = np.bincount(inv, weights=orient, minlength=len(cnt))
     wrong = total[inv] != 0
     if np.any(wrong):
         e = int(np.flatnonzero(wrong)[0])
         raise InputError(
             f"cells: the boundary is not consistently oriented: the two cells at face {faces[e].tolist()} "
-            f"induce the same orientation on it; cells at such faces: {_cells_list(cell_of[wrong])}")
+            f"induce the same orientation on it; cells at such faces: {_cells_list(cell_of[wrong])}"
+        )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -760,24 +849,35 @@ class Compound(Shape):
 
     def __init__(self, pieces: Sequence[Any]) -> None:
         if isinstance(pieces, (str, bytes)) or not isinstance(pieces, Sequence) or len(pieces) == 0:
-            raise InputError(f"pieces: expected a non-empty sequence of (shape, position[, rotor]), got {pieces!r}")
+            raise InputError(
+                f"pieces: expected a non-empty sequence of (shape, position[, rotor]), got {pieces!r}"
+            )
         shapes: list[Shape] = []
         pos: list[Array] = []
         rot: list[Array] = []
         n: int | None = None
         for i, piece in enumerate(pieces):
             if not isinstance(piece, (tuple, list)) or len(piece) not in (2, 3):
-                raise InputError(f"pieces[{i}]: expected (shape, position) or (shape, position, rotor), got {piece!r}")
+                raise InputError(
+                    f"pieces[{i}]: expected (shape, position) or (shape, position, rotor), got {piece!r}"
+                )
             shape = piece[0]
             if not isinstance(shape, (Ball, ConvexPolytope)):
-                hint = {SimplexMesh: "use convex pieces, e.g. mesh.convex_hull()",
-                        Compound: "list its pieces directly", HalfSpace: "a half-space is static only"}
-                raise InputTypeError(f"pieces[{i}]: expected a convex piece (Ball, Box, ConvexPolytope), got "
-                                     f"{type(shape).__name__}; {hint.get(type(shape), 'not a shape')}")
+                hint = {
+                    SimplexMesh: "use convex pieces, e.g. mesh.convex_hull()",
+                    Compound: "list its pieces directly",
+                    HalfSpace: "a half-space is static only",
+                }
+                raise InputTypeError(
+                    f"pieces[{i}]: expected a convex piece (Ball, Box, ConvexPolytope), got "
+                    f"{type(shape).__name__}; {hint.get(type(shape), 'not a shape')}"
+                )
             if n is None:
                 n = shape.dim
             elif shape.dim != n:
-                raise InputError(f"pieces[{i}]: expected a {n}-D shape like pieces[0], got a {shape.dim}-D one")
+                raise InputError(
+                    f"pieces[{i}]: expected a {n}-D shape like pieces[0], got a {shape.dim}-D one"
+                )
             alg = Algebra(n)
             pos.append(as_float_array(f"pieces[{i}] position", piece[1], (n,)))
             R = alg.identity_rotor() if len(piece) == 2 or piece[2] is None else piece[2]
@@ -787,8 +887,14 @@ class Compound(Shape):
         alg = Algebra(n)
         R = np.stack(rot)
         R = alg.rotor_normalize(R)
-        self._set(_dim=n, _cache={}, shapes=tuple(shapes), positions=_frozen(np.stack(pos)),
-                  rotors=_frozen(R), rotations=_frozen(alg.rotor_to_matrix(R)))
+        self._set(
+            _dim=n,
+            _cache={},
+            shapes=tuple(shapes),
+            positions=_frozen(np.stack(pos)),
+            rotors=_frozen(R),
+            rotations=_frozen(alg.rotor_to_matrix(R)),
+        )
 
     def __repr__(self) -> str:
         return f"Compound(dim={self._dim}, pieces=[{', '.join(type(s).__name__ for s in self.shapes)}])"
@@ -796,7 +902,7 @@ class Compound(Shape):
     @property
     def pieces(self) -> tuple[tuple[Shape, Array, Array], ...]:
         """The pieces as ``(shape, position, rotor)`` tuples."""
-        return tuple(zip(self.shapes, self.positions, self.rotors))
+        return tuple(zip(self.shapes, self.positions, self.rotors, strict=True))
 
     def _piece_points(self, i: int) -> Array | None:
         s = self.shapes[i]
@@ -820,7 +926,9 @@ class Compound(Shape):
         flat = d.reshape(-1, self._dim)
         best = np.full(flat.shape[0], -np.inf)
         out = np.zeros_like(flat)
-        for s, t, M in zip(self.shapes, self.positions, self.rotations):  # a loop over few pieces
+        for s, t, M in zip(
+            self.shapes, self.positions, self.rotations, strict=True
+        ):  # a loop over few pieces
             p = t + s.support(flat @ M) @ M.T  # piece-frame direction is M^T d
             h = np.einsum("ij,ij->i", p, flat)
             take = h > best
@@ -829,7 +937,10 @@ class Compound(Shape):
         return out.reshape(d.shape)
 
     def _compute_mass_properties(self) -> MassProperties:
-        parts = [(s._unit_mass_properties(), t, M) for s, t, M in zip(self.shapes, self.positions, self.rotations)]
+        parts = [
+            (s._unit_mass_properties(), t, M)
+            for s, t, M in zip(self.shapes, self.positions, self.rotations, strict=True)
+        ]
         return combine_mass_properties(parts)
 
 
@@ -861,7 +972,9 @@ class HalfSpace(Shape):
         try:
             d = float(offset)
         except (TypeError, ValueError) as exc:
-            raise InputTypeError(f"offset: expected a number, got {type(offset).__name__} {offset!r}") from exc
+            raise InputTypeError(
+                f"offset: expected a number, got {type(offset).__name__} {offset!r}"
+            ) from exc
         if not math.isfinite(d):
             raise InputError(f"offset: expected a finite number, got {d!r}")
         norm = float(np.linalg.norm(u))
@@ -902,5 +1015,7 @@ class HalfSpace(Shape):
         return lo, hi
 
     def mass_properties(self, density: Any = None, mass: Any = None) -> MassProperties:
-        raise InputError("HalfSpace: a half-space has infinite volume and no finite mass properties; it is "
-                         "static only (attach it to a static body)")
+        raise InputError(
+            "HalfSpace: a half-space has infinite volume and no finite mass properties; it is "
+            "static only (attach it to a static body)"
+        )
