@@ -296,13 +296,15 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     sa, sb = dyn[a], dyn[b]
     colour = _batches(batching, a, b, sa, sb, c.key[rows], c.manifold[rows], N)
     # sort rows by batch; everything below is in this order until the end
-    perm = np.argsort(colour, kind="stable")
-    a, b, sa, sb, colour = a[perm], b[perm], sa[perm], sb[perm], colour[perm]
+    # (and by manifold inside a batch, so that a manifold's points are one contiguous segment)
+    man = c.manifold[rows]
+    perm = np.lexsort((man, colour))
+    a, b, sa, sb, colour, man = a[perm], b[perm], sa[perm], sb[perm], colour[perm], man[perm]
     ridx = rows[perm]
     bounds = np.searchsorted(colour, np.arange(colour[-1] + 2))
     slices = [slice(int(bounds[i]), int(bounds[i + 1])) for i in range(len(bounds) - 1)]
-    unique_slots = batching == "point"
     split_a, split_b = _split_counts(colour, a, sa, b, sb, N)
+    scatters = [_Scatter(batching, a[s], b[s], man[s]) for s in slices]
 
     # body state X = [v, B] and inverse masses (zero for bodies that take no part)
     inv_m = np.where(dyn, bodies.inv_mass, 0.0)
@@ -366,47 +368,53 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
 
     max_n = lam_n.copy()
     clamped = np.zeros(lam_n.shape[0], dtype=bool)
-    # per-batch views: slicing contiguous arrays once keeps the iteration loop lean
-    views = [(s, a[s], b[s], GA[s, 0], GB[s, 0], HA[s, 0], HB[s, 0], GA[s, 1:], GB[s, 1:], HA[s, 1:],
-              HB[s, 1:], mass_n[s], Kt_inv[s], mu[s]) for s in slices]
+    # per-batch arrays, the two bodies side by side: G, H (m, n, 2(n+k)) act on the pair state
+    # [X_A, X_B] (m, 2(n+k)), gathered in one indexing op; K01 (m, n-1) couples a tangent impulse
+    # into the normal speed of the same row (with the split masses of the row's body copies)
+    G = np.concatenate([GA, GB], axis=2)
+    H = np.concatenate([HA, HB], axis=2)
+    K01 = K[:, 0, 1:]
+    ab = np.stack([a, b], axis=1)
+    views = [(s, sc, ab[s], G[s], H[s], K01[s], Kt_inv[s], mu[s])
+             for s, sc in zip(slices, scatters, strict=True)]
+    w = n + k
 
-    def sweep(bias: Array, ms: Array, isc: Array, track: bool) -> None:
-        for (s, ia, ib, gan, gbn, han, hbn, gat, gbt, hat, hbt, mn, kti, mus) in views:
-            Xa0 = X[ia]
-            Xb0 = X[ib]
+    def sweep(bias: Array, keep: Array, gain: Array, track: bool) -> None:
+        """One Gauss-Seidel pass over the batches: new lambda_n = max(keep lambda_n - gain (v_n +
+        bias), 0), where keep = 1 - impulse scale and gain = mass scale x normal mass."""
+        for (s, sc, iab, g, hh, k01, kti, mus) in views:
+            Xab0 = X[iab].reshape(-1, 2 * w)
+            V = np.einsum("mdj,mj->md", g, Xab0)  # speeds along normal and tangents
             # friction: one vector impulse in the tangent space, clamped onto the cone's ball
-            vt = np.einsum("mdj,mj->md", gat, Xa0) + np.einsum("mdj,mj->md", gbt, Xb0)
             old_t = lam_t[s]
-            new_t = old_t - np.einsum("mde,me->md", kti, vt)
+            new_t = old_t - np.einsum("mde,me->md", kti, V[:, 1:])
             radius = mus * lam_n[s]
             norm = np.sqrt(np.einsum("md,md->m", new_t, new_t))
             over = norm > radius * (1.0 + _STICK_TOL)
-            scale = np.where(over, radius / np.where(over, norm, 1.0), 1.0)
-            new_t *= scale[:, None]
-            dlt = new_t - old_t
+            new_t *= np.where(over, radius / np.where(over, norm, 1.0), 1.0)[:, None]
+            dl = np.empty((new_t.shape[0], n))
+            dl[:, 1:] = new_t - old_t
             lam_t[s] = new_t
             if track:
                 clamped[s] = over & (radius > 0.0)
-            Xa = Xa0 + np.einsum("md,mdj->mj", dlt, hat)
-            Xb = Xb0 + np.einsum("md,mdj->mj", dlt, hbt)
-            # normal: accumulated impulse clamped at zero
-            vn = np.einsum("mj,mj->m", gan, Xa) + np.einsum("mj,mj->m", gbn, Xb)
-            old_n = lam_n[s]
-            new_n = np.maximum(old_n - mn * ms[s] * (vn + bias[s]) - isc[s] * old_n, 0.0)
-            dln = new_n - old_n
+            # normal: its speed after the friction impulse, accumulated impulse clamped at zero
+            vn = V[:, 0] + np.einsum("md,md->m", k01, dl[:, 1:])
+            old_n = lam_n[s]  # a view: the deltas are taken before lam_n is written
+            new_n = np.maximum(keep[s] * old_n - gain[s] * (vn + bias[s]), 0.0)
+            dl[:, 0] = new_n - old_n
             lam_n[s] = new_n
             np.maximum(max_n[s], new_n, out=max_n[s])
-            Xa += dln[:, None] * han
-            Xb += dln[:, None] * hbn
-            _scatter(X, ia, ib, Xa, Xb, Xa0, Xb0, unique_slots)
+            sc.apply(X, iab, Xab0, np.einsum("md,mdj->mj", dl, hh))
 
     iters = int(settings.velocity_iterations)
     relax = int(settings.relax_iterations)
+    keep_on, gain_on = 1.0 - is_on, mass_n * ms_on
     for it in range(iters):
-        sweep(bias_on, ms_on, is_on, track=relax == 0 and it == iters - 1)
+        sweep(bias_on, keep_on, gain_on, track=relax == 0 and it == iters - 1)
     X_biased = X.copy()
     for it in range(relax):
-        sweep(bias_off, ones, zeros, track=it == relax - 1)
+        sweep(bias_off, ones, mass_n, track=it == relax - 1)
+    del zeros
     # the push: what the bias moved, taken out of the velocities by the relax pass
     moved = np.nonzero(dyn)[0]
     push_dX = dt * (X_biased[moved] - X[moved])
@@ -415,17 +423,17 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     e = c.restitution[ridx]
     bounce = (e > 0.0) & (vn0 < -settings.restitution_threshold) & (max_n > 0.0)
     if np.any(bounce):
-        for (s, ia, ib, gan, gbn, han, hbn, *_rest) in views:
+        for (s, sc, iab, g, hh, *_rest) in views:
             m = bounce[s]
             if not np.any(m):
                 continue
-            Xa, Xb = X[ia], X[ib]
-            vn = np.einsum("mj,mj->m", gan, Xa) + np.einsum("mj,mj->m", gbn, Xb)
+            Xab0 = X[iab].reshape(-1, 2 * w)
+            vn = np.einsum("mj,mj->m", g[:, 0], Xab0)
             old_n = lam_n[s]
             new_n = np.where(m, np.maximum(old_n - mass_n[s] * (vn + e[s] * vn0[s]), 0.0), old_n)
-            dln = new_n - old_n
+            dln = new_n - old_n  # before the write below: old_n is a view of lam_n
             lam_n[s] = new_n
-            _scatter(X, ia, ib, Xa + dln[:, None] * han, Xb + dln[:, None] * hbn, Xa, Xb, unique_slots)
+            sc.apply(X, iab, Xab0, dln[:, None] * hh[:, 0])
 
     bodies.velocity[moved] = X[moved, :n]
     bodies.angular_velocity[moved] = X[moved, n:]
@@ -439,20 +447,37 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     return lam_n[inv_perm], lam_t_w[inv_perm], clamped[inv_perm]
 
 
-def _scatter(X: Array, ia: IntArray, ib: IntArray, Xa: Array, Xb: Array, Xa0: Array, Xb0: Array,
-             unique_slots: bool) -> None:
-    """Write a batch's body states back into X.
+class _Scatter:
+    """How one batch adds its change of the pair states (m, 2(n+k)) back into X (N, n+k).
 
-    With one row per dynamic body in the batch (``unique_slots``) a plain assignment is exact:
-    rows repeat only bodies without a slot, whose state the batch cannot change. Otherwise the
-    changes are summed (mass splitting: the copies' impulses add up on the one body).
+    * ``"point"``: one row per dynamic body in the batch, so a plain assignment is exact (rows
+      repeat only bodies without a slot, whose state the batch cannot change).
+    * ``"manifold"``: the rows of a manifold share its two bodies (mass splitting: the impulses of
+      the copies add up on the one body). The changes are summed per manifold segment with
+      ``np.add.reduceat`` and added with plain indexing, since a dynamic body takes only one
+      manifold per batch (``np.add.at`` over rows measured ~7x slower: 21 us vs 3 us for 270 4-D
+      rows).
+    * ``"jacobi"``: as manifold, but a body takes many manifolds: the segment sums are added with
+      ``np.add.at`` (over manifolds, not rows).
     """
-    if unique_slots:
-        X[ia] = Xa
-        X[ib] = Xb
-    else:
-        np.add.at(X, ia, Xa - Xa0)
-        np.add.at(X, ib, Xb - Xb0)
+
+    def __init__(self, batching: str, a: IntArray, b: IntArray, manifold: IntArray) -> None:
+        self.mode = batching
+        if batching != "point":
+            starts = np.r_[0, np.nonzero(manifold[1:] != manifold[:-1])[0] + 1]
+            self.starts = starts
+            self.seg = np.stack([a[starts], b[starts]], axis=1)
+
+    def apply(self, X: Array, iab: IntArray, Xab0: Array, dXab: Array) -> None:
+        w = X.shape[1]
+        if self.mode == "point":
+            X[iab] = (Xab0 + dXab).reshape(-1, 2, w)
+            return
+        d = np.add.reduceat(dXab, self.starts, axis=0).reshape(-1, 2, w)
+        if self.mode == "manifold":
+            X[self.seg] += d
+        else:
+            np.add.at(X, self.seg.reshape(-1), d.reshape(-1, w))
 
 
 def _push_positions(alg: Algebra, bodies: Bodies, rows: IntArray, dX: Array) -> None:
