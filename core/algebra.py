@@ -255,7 +255,29 @@ class Algebra:
                         j = int(np.log2(masks[c]))
                         T[ai, bi, j, i] += s1 * sign[ab, b] * self._even_reverse[bi]
         self._t_rot = T.reshape(E * E, n * n)
-        for t in (self._t_gp, self._t_op, self._t_lc, self._t_sp, self._t_even, self._t_comm, self._t_rot):
+        # rotor -> second compound: column (kl) is the bivector R e_kl ~R, again quadratic in R
+        k = self.k
+        T2 = np.zeros((E, E, k, k))
+        bpos = np.full(N, -1, dtype=np.intp)
+        bpos[biv] = np.arange(k)
+        for q, bq in enumerate(biv):
+            for ai, a in enumerate(even):
+                ab = prod_idx[a, bq]
+                s1 = sign[a, bq]
+                for bi, b in enumerate(even):
+                    c = prod_idx[ab, b]
+                    if self.grades[c] == 2:
+                        T2[ai, bi, bpos[c], q] += s1 * sign[ab, b] * self._even_reverse[bi]
+        self._t_c2 = T2.reshape(E * E, k * k)
+        # sandwich R B ~R of a bivector as two products: (R B) even x bivector -> even, then
+        # (R B) ~R even x even -> bivector part (the reverse sign of ~R is folded into the table)
+        self._t_eb = table(everything, even, biv, even)
+        self._t_eeb = (table(everything, even, even, biv).reshape(E, E, k)
+                       * self._even_reverse[None, :, None]).reshape(E * E, k)
+        # ad_a as a k x k matrix from one product: (a @ T)[c * k + b] = coefficient of e_c in a x e_b
+        self._t_adm = np.ascontiguousarray(self._t_comm.reshape(k, k, k).transpose(0, 2, 1).reshape(k, k * k))
+        for t in (self._t_gp, self._t_op, self._t_lc, self._t_sp, self._t_even, self._t_comm, self._t_rot,
+                  self._t_c2, self._t_eb, self._t_eeb, self._t_adm):
             t.setflags(write=False)
 
     # -- embedding and projection ------------------------------------------------------------------
@@ -370,8 +392,7 @@ class Algebra:
     def commutator_matrix(self, a: Any) -> Array:
         """The k x k matrix of ``b -> a x b`` (ad_a), batched: (..., k) -> (..., k, k)."""
         a = np.asarray(a, dtype=np.float64)
-        T = self._t_comm.reshape(self.k, self.k, self.k)  # [a, b, c]
-        return np.einsum("...a,abc->...cb", a, T)
+        return (a @ self._t_adm).reshape(a.shape[:-1] + (self.k, self.k))
 
     # -- rotors (even multivectors) ---------------------------------------------------------------
 
@@ -424,10 +445,21 @@ class Algebra:
         M = self.rotor_to_matrix(R)
         return np.einsum("...ij,...j->...i", M, np.asarray(x, dtype=np.float64))
 
+    def rotor_to_compound(self, R: Any) -> Array:
+        """Second compound matrices (..., k, k) of rotors' rotations, straight from the rotors.
+
+        Column (kl) is ``R e_kl ~R``, quadratic in R: one table product, about 5x cheaper than
+        forming the rotation matrix and its 2 x 2 minors. Equals ``second_compound(rotor_to_matrix(R))``
+        for unit rotors.
+        """
+        R = self._even(R, "R")
+        return self._bilinear(R, R, self._t_c2).reshape(R.shape[:-1] + (self.k, self.k))
+
     def rotate_bivectors(self, R: Any, B: Any) -> Array:
-        """``R B ~R`` for bivectors B (..., k), through the second compound of R's matrix."""
-        C = second_compound(self.rotor_to_matrix(R))
-        return np.einsum("...ij,...j->...i", C, np.asarray(B, dtype=np.float64))
+        """``R B ~R`` for bivectors B (..., k): two table products, no matrix formed."""
+        R = self._even(R, "R")
+        B = np.asarray(B, dtype=np.float64)
+        return self._bilinear(self._bilinear(R, B, self._t_eb), R, self._t_eeb)
 
     # -- exponential and logarithm ----------------------------------------------------------------
 

@@ -176,10 +176,8 @@ class Bodies(Table):
 
     def world_inv_inertia(self) -> NDArray[np.float64]:
         """World-frame inverse inertia maps (N, k, k): C2(P) diag(inv_inertia) C2(P)^T."""
-        from .algebra import second_compound
-
-        C = second_compound(self.principal_matrices())
-        return np.einsum("nij,nj,nkj->nik", C, self.inv_inertia, C)
+        C = self.alg.rotor_to_compound(self.alg.rotor_mul(self.rotor, self.principal_rotor))
+        return np.matmul(C * self.inv_inertia[:, None, :], np.swapaxes(C, -1, -2))
 
 
 @dataclass

@@ -31,7 +31,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra, second_compound
+from .algebra import Algebra
 from .components import DYNAMIC, KINEMATIC, Bodies
 
 Array = NDArray[np.float64]
@@ -41,10 +41,23 @@ GYRO_EXPLICIT = "explicit"
 GYRO_NONE = "none"
 
 
-def body_frames(alg: Algebra, rotation: Array, principal_rotor: Array) -> Array:
-    """Second compound matrices (N, k, k) of the world-from-principal rotations."""
-    P = np.einsum("nij,njk->nik", rotation, alg.rotor_to_matrix(principal_rotor))
-    return second_compound(P)
+def body_frames(alg: Algebra, rotor: Array, principal_rotor: Array) -> Array:
+    """Second compound matrices (N, k, k) of the world-from-principal rotations ``R Q``."""
+    return alg.rotor_to_compound(alg.rotor_mul(rotor, principal_rotor))
+
+
+def _matvec(C: Array, x: Array) -> Array:
+    return np.matmul(C, x[..., None])[..., 0]
+
+
+def _rmatvec(C: Array, x: Array) -> Array:
+    """C^T x for batches of square matrices."""
+    return np.matmul(x[..., None, :], C)[..., 0, :]
+
+
+def _select(mask: NDArray[np.bool_]) -> slice | NDArray[np.intp]:
+    """Rows of a mask: a slice when every row is selected (no gather copies on the common path)."""
+    return slice(None) if mask.all() else np.nonzero(mask)[0]
 
 
 def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array, dt: float,
@@ -86,9 +99,10 @@ def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array
 def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
                          gyroscopic: str = GYRO_IMPLICIT) -> None:
     """Apply gravity, forces, torques, damping and the gyroscopic term to awake dynamic bodies."""
-    rows = np.nonzero((b.kind == DYNAMIC) & b.awake)[0]
-    if rows.size == 0:
+    active = (b.kind == DYNAMIC) & b.awake
+    if not active.any():
         return
+    rows = _select(active)
     inv_m = b.inv_mass[rows]
     v = b.velocity[rows] + dt * (gravity + inv_m[:, None] * b.force[rows])
     v *= (1.0 / (1.0 + dt * b.linear_damping[rows]))[:, None]
@@ -96,41 +110,45 @@ def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
 
     inv_i = b.inv_inertia[rows]
     rotating = np.any(inv_i > 0.0, axis=1)
-    if not np.any(rotating):
-        return
-    r = rows[rotating]
-    inv_i = inv_i[rotating]
-    C = body_frames(alg, b.rotation[r], b.principal_rotor[r])
-    w_body = np.einsum("nji,nj->ni", C, b.angular_velocity[r])
-    tau_body = np.einsum("nji,nj->ni", C, b.torque[r])
+    if not rotating.all():
+        if not rotating.any():
+            return
+        rows = np.arange(b.count)[rows][rotating]
+        inv_i = inv_i[rotating]
+    C = body_frames(alg, b.rotor[rows], b.principal_rotor[rows])
+    w_body = _rmatvec(C, b.angular_velocity[rows])
+    tau_body = _rmatvec(C, b.torque[rows])
     # planes with zero inverse inertia (locked) keep zero velocity: give them unit inertia and
     # zero the result, which avoids a division by zero without a branch
     locked = inv_i <= 0.0
     inertia = np.where(locked, 1.0, 1.0 / np.where(locked, 1.0, inv_i))
-    w_body = np.where(locked, 0.0, w_body)
-    tau_body = np.where(locked, 0.0, tau_body)
+    if locked.any():
+        w_body = np.where(locked, 0.0, w_body)
+        tau_body = np.where(locked, 0.0, tau_body)
     w2 = gyroscopic_step(alg, w_body, inertia, tau_body, dt, gyroscopic)
-    w2 = np.where(locked, 0.0, w2)
-    w2 *= (1.0 / (1.0 + dt * b.angular_damping[r]))[:, None]
-    b.angular_velocity[r] = np.einsum("nij,nj->ni", C, w2)
+    if locked.any():
+        w2 = np.where(locked, 0.0, w2)
+    w2 *= (1.0 / (1.0 + dt * b.angular_damping[rows]))[:, None]
+    b.angular_velocity[rows] = _matvec(C, w2)
 
 
 def integrate_positions(alg: Algebra, b: Bodies, dt: float) -> None:
     """Move awake dynamic and kinematic bodies: centre of mass by h v, orientation by the exact
     rotor exponential of h times the world angular velocity; refresh the rotation matrices."""
-    rows = np.nonzero(((b.kind == DYNAMIC) | (b.kind == KINEMATIC)) & b.awake)[0]
-    if rows.size == 0:
+    active = ((b.kind == DYNAMIC) | (b.kind == KINEMATIC)) & b.awake
+    if not active.any():
         return
+    rows = _select(active)
     rot = b.rotation[rows]
     c_local = b.local_centroid[rows]
-    com = b.position[rows] + np.einsum("nij,nj->ni", rot, c_local)
+    com = b.position[rows] + _matvec(rot, c_local)
     com += dt * b.velocity[rows]
     R = alg.rotor_mul(alg.rotor(dt * b.angular_velocity[rows]), b.rotor[rows])
     R = alg.rotor_normalize(R, steps=1)
     M = alg.rotor_to_matrix(R)
     b.rotor[rows] = R
     b.rotation[rows] = M
-    b.position[rows] = com - np.einsum("nij,nj->ni", M, c_local)
+    b.position[rows] = com - _matvec(M, c_local)
 
 
 def clear_accumulators(b: Bodies) -> None:

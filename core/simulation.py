@@ -538,7 +538,7 @@ class Simulation:
             return 0.0
         m = 1.0 / b.inv_mass[rows]
         lin = 0.5 * np.sum(m * np.einsum("ni,ni->n", b.velocity[rows], b.velocity[rows]))
-        C = _integrate.body_frames(self.alg, b.rotation[rows], b.principal_rotor[rows])
+        C = _integrate.body_frames(self.alg, b.rotor[rows], b.principal_rotor[rows])
         wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
         inv_i = b.inv_inertia[rows]
         inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)
@@ -588,7 +588,7 @@ class Simulation:
                 raise InputError(f"about: expected 'origin', 'com' or an (n,) point, got {about!r}")
         else:
             o = as_float_array("about", about, (self.dim,))
-        C = _integrate.body_frames(self.alg, b.rotation[rows], b.principal_rotor[rows])
+        C = _integrate.body_frames(self.alg, b.rotor[rows], b.principal_rotor[rows])
         wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
         inv_i = b.inv_inertia[rows]
         inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)

@@ -1,0 +1,125 @@
+"""Benchmark scenes: builders of Simulations with a known body count, seeded.
+
+Each builder returns ``(sim, warmup_steps)``; the harness steps ``warmup_steps`` untimed (so that
+a pile has settled) and then times ``--steps`` steps.
+
+* ``pile``: mixed boxes and balls dropped into a walled bin, sleeping off, timed after settling;
+* ``pyramid``: boxes stacked in a 2-D-style pyramid (rows in the e0-e1 plane), base given by
+  ``bodies`` (so base 100 means 5,050 boxes);
+* ``spin``: free bodies with random angular velocities, no gravity, far apart: integrate only;
+* ``broadphase``: moving bodies in a periodic cloud, only the broadphase stage is timed;
+* ``boxes``: touching random box pairs, only the narrowphase (box/box) is timed.
+"""
+
+from __future__ import annotations
+
+from typing import Callable
+
+import numpy as np
+
+from ndrigid.core.shapes import Ball, Box, HalfSpace
+from ndrigid.core.simulation import Settings, Simulation
+
+SceneBuilder = Callable[[int, int, int], tuple[Simulation, int]]
+
+
+def _bin_walls(sim: Simulation, half_width: float) -> None:
+    """A floor (normal +e1 at height 0) and walls at +-half_width on every horizontal axis."""
+    n = sim.dim
+    up = np.zeros(n)
+    up[1] = 1.0
+    sim.add_body(HalfSpace(up, 0.0), kind="static")  # solid below y = 0: its normal points out (up)
+    for axis in range(n):
+        if axis == 1:
+            continue
+        for sign in (1.0, -1.0):
+            u = np.zeros(n)
+            u[axis] = sign
+            # the wall's solid is sign * x_axis >= half_width; its outward normal is -u
+            sim.add_body(HalfSpace(-u, -half_width), kind="static")
+
+
+def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+    """Mixed boxes and balls in a walled bin, sleeping off."""
+    rng = np.random.default_rng(seed)
+    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    size = 0.5
+    # bin floor area holds about bodies^(1/(n-1))... choose a width giving ~6 layers
+    per_layer = max(1.0, bodies / 6.0)
+    cells = int(np.ceil(per_layer ** (1.0 / (dim - 1))))
+    half_width = 0.5 * cells * size * 1.25 + 0.1
+    _bin_walls(sim, half_width)
+    ball = Ball(dim, 0.5 * size * 0.9)
+    box = Box(np.full(dim, 0.5 * size * 0.85))
+    horiz = [a for a in range(dim) if a != 1]
+    for i in range(bodies):
+        pos = np.zeros(dim)
+        layer, slot = divmod(i, cells ** (dim - 1))
+        idx = np.unravel_index(slot, (cells,) * (dim - 1))
+        for a, j in zip(horiz, idx):
+            pos[a] = -half_width + 0.1 + (j + 0.5) * size * 1.25 + rng.uniform(-0.05, 0.05)
+        pos[1] = 0.5 * size + layer * size * 1.3 + rng.uniform(0, 0.05)
+        rot = sim.alg.rotor(rng.normal(size=sim.alg.k) * 0.3)
+        sim.add_body(box if i % 2 else ball, position=pos, rotor=rot, density=500.0, friction=0.6)
+    settle = int(min(240, 60 + 3 * np.sqrt(bodies)))
+    return sim, settle
+
+
+def build_pyramid(dim: int, base: int, seed: int) -> tuple[Simulation, int]:
+    """A pyramid of unit-ish boxes in the e0-e1 plane (other axes at 0), base ``base`` boxes."""
+    del seed
+    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    up = np.zeros(dim)
+    up[1] = 1.0
+    sim.add_body(HalfSpace(up, 0.0), kind="static")
+    h = 0.5
+    box = Box(np.full(dim, h))
+    for row in range(base):
+        for col in range(base - row):
+            pos = np.zeros(dim)
+            pos[0] = (col - (base - row - 1) / 2.0) * (2 * h + 0.01)
+            pos[1] = h + row * 2 * h
+            sim.add_body(box, position=pos, density=1.0, friction=0.6)
+    return sim, 0
+
+
+def build_spin(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+    """Free bodies far apart with random angular velocities; only integration does work."""
+    rng = np.random.default_rng(seed)
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(allow_sleep=False))
+    box = Box(np.linspace(0.2, 0.5, dim))
+    side = int(np.ceil(bodies ** (1.0 / dim)))
+    for i in range(bodies):
+        idx = np.array(np.unravel_index(i, (side,) * dim), dtype=float)
+        sim.add_body(box, position=idx * 3.0, angular_velocity=rng.normal(size=sim.alg.k), density=1.0)
+    return sim, 0
+
+
+def build_cloud(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+    """Moving balls and boxes in a cloud of density ~1 body per 8 unit cells (broadphase load)."""
+    rng = np.random.default_rng(seed)
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(allow_sleep=False))
+    extent = (8.0 * bodies) ** (1.0 / dim)
+    shapes = [Ball(dim, 0.4), Box(np.full(dim, 0.3))]
+    for i in range(bodies):
+        sim.add_body(shapes[i % 2], position=rng.uniform(0, extent, size=dim), velocity=rng.normal(size=dim),
+                     density=1.0)
+    return sim, 0
+
+
+SCENES: dict[str, SceneBuilder] = {
+    "pile": build_pile,
+    "pyramid": build_pyramid,
+    "spin": build_spin,
+    "broadphase": build_cloud,
+    "boxes": build_cloud,
+}
+
+# which stages are timed for each scene (None: the whole step)
+TIMED_STAGES: dict[str, tuple[str, ...] | None] = {
+    "pile": None,
+    "pyramid": None,
+    "spin": ("integrate_velocities", "integrate_positions"),
+    "broadphase": ("update_pairs",),
+    "boxes": ("collide",),
+}
