@@ -522,7 +522,7 @@ def _fallback_point(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: IntArray,
 
     Alternating projections between two intersecting convex sets converge to a point of both (von
     Neumann); a few rounds suffice for a usable contact point. Returns midway points (F, n) and
-    their depths (F,), reference frame.
+    their depths (F,), reference frame; -inf where a gap has no point.
     """
     F, n = e.shape
     rs = np.arange(F)
@@ -537,8 +537,12 @@ def _fallback_point(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: IntArray,
         y = np.clip(np.einsum("pij,pi->pj", Q, x - e), ilo, ihi)
         x = e + np.einsum("pij,pj->pi", Q, y)
     dep = h_ref[rs, m] - s * x[rs, m]
+    # a speculative point only when the projections met (the faces overlap seen along the normal):
+    # otherwise the boxes approach edge to edge or corner to corner and the face gap is not the gap
+    met = np.all(np.abs(x) <= lim + 1e-6 * np.max(h_ref, axis=1)[:, None], axis=1)
+    dep = np.where(met | (dep > 0.0), dep, -np.inf)
     x = x.copy()
-    x[rs, m] += 0.5 * s * dep
+    x[rs, m] += 0.5 * s * np.where(np.isfinite(dep), dep, 0.0)
     return x, dep
 
 
