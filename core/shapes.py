@@ -16,10 +16,13 @@ Choices worth knowing:
   qhull returns a triangulated boundary; its simplices are merged into true facets by clustering
   their (unit normal, offset / size) rows within a tolerance (a KD-tree pair query plus connected
   components), which, unlike rounding the rows, cannot split a facet whose rows straddle a rounding
-  boundary. The face structure is then derived from the facet-vertex incidence alone: a point is a
-  true vertex when the normals of its facets have rank n, a vertex pair is a true edge when the
-  normals of the facets containing both have rank n - 1 (a 1-face has exactly two vertices), and the
-  edges of a facet are the edges whose two ends lie on it. Duplicate input points are merged and
+  boundary. Nearly coplanar facets (noisy input) are merged by qhull itself during construction
+  (centrum pre-merge, ``ConvexPolytope(points, tolerance=...)``), so noise does not leave thin
+  sliver facets where a face should be flat. The face structure is then derived from the
+  facet-vertex incidence alone: a point is a true vertex when the normals of its facets have rank
+  n, a vertex pair is a true edge when the normals of the facets containing both have rank n - 1
+  (a 1-face has exactly two vertices), and the edges of a facet are the edges whose two ends lie
+  on it. Duplicate input points are merged and
   points that are not vertices (interior, or on a face) are dropped.
 * Box is a ConvexPolytope (isinstance holds) whose vertices, facets and edges are generated
   combinatorially for any n: vertex v has coordinate +h_i where bit i of v is set.
@@ -67,6 +70,8 @@ __all__ = [
 # Relative tolerances (times the shape's size). Facet rows from qhull for one true facet agree to
 # ~1e-15; distinct facets of any sane polytope differ by far more than 1e-9.
 _FACET_MERGE_TOL = 1e-9
+# Default relative pre-merge distance for nearly coplanar facets (ConvexPolytope(tolerance=...)).
+_DEFAULT_TOLERANCE = 1e-9
 # Eigenvalue threshold on sums of unit-normal outer products when counting the rank of a facet set.
 _RANK_TOL = 1e-9
 
@@ -305,18 +310,28 @@ class ConvexPolytope(Shape):
     facet_edges: tuple[IntArray, ...]
     edges: IntArray
     facet_adjacency: IntArray
+    _tolerance: float
 
-    def __init__(self, points: Any) -> None:
+    def __init__(self, points: Any, *, tolerance: float | None = None) -> None:
+        """Hull of ``points`` (N, n) float, N >= n + 1, spanning n-D.
+
+        ``tolerance`` (relative to the size of the point set, default 1e-9) is the distance below
+        which nearly coplanar hull facets are merged while qhull builds the hull (its centrum
+        pre-merge, option ``C-``). Exact input (regular polytopes, boxes) needs nothing; points
+        that carry noise, such as float32 exports, want about 1e-6, or thin sliver facets appear
+        where faces should be flat.
+        """
         P = _points("points", points)
         N, n = P.shape
+        tol = _DEFAULT_TOLERANCE if tolerance is None else positive_scalar("tolerance", tolerance)
         if N < n + 1:
             raise InputError(f"points: expected at least n + 1 = {n + 1} points to span {n}-D, got {N}")
         _, first = np.unique(P, axis=0, return_index=True)
         P = P[np.sort(first)]  # merge exact duplicates, keep the input order
         if P.shape[0] < n + 1:
             raise InputError(f"points: expected at least n + 1 = {n + 1} distinct points, got {P.shape[0]}")
-        parts = _hull_parts(P)
-        self._set(_dim=n, _cache={"qhull_triangulation": parts.pop("triangulation")}, **parts)
+        parts = _hull_parts(P, tol)
+        self._set(_dim=n, _tolerance=tol, _cache={"qhull_triangulation": parts.pop("triangulation")}, **parts)
 
     def __repr__(self) -> str:
         return (
@@ -386,7 +401,7 @@ class ConvexPolytope(Shape):
         else:
             seen: dict[tuple[int, ...], IntArray] = {}
             for f, fv in enumerate(self.facet_vertices):
-                sub = _facet_polytope(np.asarray(self.vertices), self.facet_normals[f], fv)
+                sub = _facet_polytope(np.asarray(self.vertices), self.facet_normals[f], fv, self._tolerance)
                 for face in sub.faces(k):
                     g = np.sort(fv[face])
                     seen.setdefault(tuple(int(i) for i in g), g)
@@ -455,27 +470,47 @@ def _pulling_triangulation(poly: ConvexPolytope) -> IntArray:
     return tri
 
 
-def _facet_polytope(vertices: Array, normal: Array, idx: IntArray) -> ConvexPolytope:
+def _facet_polytope(vertices: Array, normal: Array, idx: IntArray, tol: float) -> ConvexPolytope:
     """A facet as an (n-1)-polytope in an orthonormal frame of its hyperplane (vertex order kept)."""
     _, _, Vt = np.linalg.svd(normal[None, :])
     basis = Vt[1:]  # (n-1, n), orthonormal complement of the normal
     P = vertices[idx]
-    return ConvexPolytope((P - P.mean(axis=0)) @ basis.T)
+    return ConvexPolytope((P - P.mean(axis=0)) @ basis.T, tolerance=tol)
 
 
-def _hull_parts(P: Array) -> dict[str, Any]:
+def _qhull(P: Array, tol: float, size: float) -> ConvexHull:
+    """qhull with a centrum pre-merge of ``tol * size``; retried with more forgiving options.
+
+    ``Qx`` (exact pre-merges) is what scipy uses by default above 4-D. Nearly degenerate input can
+    still end in a qhull topology error; ``Q12`` allows qhull's wide merges and, as a last resort,
+    ``QJ`` joggles the input (its facets are then merged back by the clustering below).
+    """
+    n = P.shape[1]
+    base = f"C-{tol * size:.6g}" + (" Qx" if n > 4 else "")
+    last: Exception | None = None
+    for extra in ("", " Q12", " QJ"):
+        try:
+            return ConvexHull(P, qhull_options=base + extra)
+        except QhullError as exc:
+            last = exc
+    msg = str(last).strip().splitlines()[0] if last is not None and str(last).strip() else "qhull error"
+    raise InputError(f"points: qhull could not build the hull of these {P.shape[0]} points ({msg})")
+
+
+def _hull_parts(P: Array, tol: float = 1e-9) -> dict[str, Any]:
     """Face structure of conv(P) for distinct points P (N, n). See the module notes."""
     N, n = P.shape
     size = float(np.max(np.ptp(P, axis=0)))
     if size == 0.0:
         raise InputError(f"points: all {N} points coincide; expected points spanning {n}-D")
-    try:
-        hull = ConvexHull(P)
-    except QhullError as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else "qhull error"
+    # flat input is caught here, before qhull, so that the message can say so plainly
+    sv = np.linalg.svd(P - P.mean(axis=0), compute_uv=False)
+    if not sv[n - 1] > 1e-12 * sv[0]:
         raise InputError(
-            f"points: the {N} points do not span {n}-D (they are flat, zero {n}-volume); qhull: {first}"
-        ) from exc
+            f"points: the {N} points do not span {n}-D (they are flat: zero {n}-volume, spread "
+            f"{sv[n - 1]:.3g} across their thinnest direction against {sv[0]:.3g} along the widest)"
+        )
+    hull = _qhull(P, tol, size)
     if not hull.volume > 1e-12 * size**n:
         raise InputError(
             f"points: the hull has {n}-volume {hull.volume:.3g}, which is flat for points "
@@ -510,7 +545,7 @@ def _hull_parts(P: Array) -> dict[str, Any]:
     true_v = used[rank == n]
     if len(true_v) < len(used):
         # qhull kept a point that is not a vertex; rebuild from the true vertices only
-        return _hull_parts(P[true_v])
+        return _hull_parts(P[true_v], tol)
     # every point is now a true vertex; renumber in input order
     vmap = np.full(N, -1, dtype=np.intp)
     vmap[true_v] = np.arange(len(true_v))
@@ -610,6 +645,7 @@ class Box(ConvexPolytope):
         self._set(
             _dim=n,
             _cache={},
+            _tolerance=_DEFAULT_TOLERANCE,
             half_extents=_frozen(h),
             vertices=_frozen(V),
             facet_normals=_frozen(normals),

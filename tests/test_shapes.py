@@ -318,6 +318,29 @@ def test_polytope_merges_facets_and_drops_non_vertices(dim: int, rng: np.random.
     np.testing.assert_allclose(lengths, 2.0)
 
 
+@pytest.mark.parametrize(
+    ("dim", "noise", "tolerance"),
+    [(3, 1e-11, None), (4, 1e-11, None), (5, 1e-11, None), (4, 1e-7, 1e-6), (5, 1e-7, 1e-6)],
+    ids=["3d-1e-11", "4d-1e-11", "5d-1e-11", "4d-1e-7", "5d-1e-7"],
+)
+def test_noisy_cube_merges_to_true_facets(dim: int, noise: float, tolerance: float | None) -> None:
+    """Cube corners with noise (and a noisy 4^n grid for the small noise): the nearly flat faces
+    merge back to the cube's 2n facets, 2^n vertices and n 2^(n-1) edges (Coxeter, Regular
+    Polytopes, from memory), and the volume stays 2^n to the size of the noise."""
+    rng = np.random.default_rng(dim)
+    corners = np.array(list(itertools.product((-1.0, 1.0), repeat=dim)))
+    if noise < 1e-9:
+        g = np.linspace(-1.0, 1.0, 4)
+        corners = np.array(list(itertools.product(g, repeat=dim)))
+    poly = ConvexPolytope(corners + noise * rng.normal(size=corners.shape), tolerance=tolerance)
+    assert (len(poly.vertices), len(poly.facet_normals), len(poly.edges)) == (
+        2**dim,
+        2 * dim,
+        dim * 2 ** (dim - 1),
+    )
+    assert poly.mass_properties().volume == pytest.approx(2.0**dim, rel=100 * noise)
+
+
 @dims(2, 3, 4, 5)
 def test_random_polytope_structure_against_scipy(dim: int, rng: np.random.Generator) -> None:
     """Random points: vertices are scipy ConvexHull's vertices; every hull equation is one of our
@@ -523,6 +546,7 @@ BAD_INPUT = {
     "duplicates-leave-too-few": (lambda: ConvexPolytope([[0, 0], [1, 0], [1, 0], [0, 0]]), "distinct"),
     "flat-points": (lambda: ConvexPolytope([[0, 0, 0], [1, 0, 0], [0, 1, 0], [1, 1, 0], [3, 2, 0]]), "flat"),
     "coincident-points": (lambda: ConvexPolytope(np.ones((5, 2))), "distinct|coincide"),
+    "bad-tolerance": (lambda: ConvexPolytope([[0, 0], [1, 0], [0, 1]], tolerance=-1.0), "tolerance"),
     "nan-point": (lambda: ConvexPolytope([[0, 0], [1, 0], [np.nan, 1]]), "finite"),
     "1d-points": (lambda: ConvexPolytope([[0.0], [1.0]]), "n >= 2"),
     "zero-radius": (lambda: Ball(3, 0.0), "radius"),
