@@ -119,6 +119,20 @@ class ShapeStore:
             self._extra_ids[id(shape)] = k
         return k
 
+    def mark(self) -> int:
+        """A mark for :meth:`forget_since` (the number of extra shapes now)."""
+        return len(self.extras)
+
+    def forget_since(self, mark: int) -> None:
+        """Drop the extra shapes (and what was cached about them) added after ``mark``: queries
+        register their temporary shapes here and must not grow the store for good."""
+        del self.extras[mark:]
+        for sid in [s for s, k in self._extra_ids.items() if -k > mark]:
+            del self._extra_ids[sid]
+        for table in (self.compound, self.mesh):
+            for k in [k for k, v in table.items() if k < -mark or (isinstance(v, int) and v < -mark)]:
+                del table[k]
+
     def hull_key(self, key: int) -> int:
         """Key of the convex hull of the mesh with key ``key``."""
         k = self.mesh.get(key)

@@ -17,8 +17,9 @@ the simulation exactly as it was.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -600,6 +601,41 @@ class Simulation:
         """Replace settings fields (validated); returns self for chaining."""
         self.settings = replace(self.settings, **changes).validated()
         return self
+
+    # -- scene queries (thin delegates to core/queries.py) ------------------------------------------
+
+    def raycast(self, origin: Any, direction: Any, max_distance: Any = np.inf,
+                layer_mask: Any = ALL_LAYERS) -> Any:
+        """First body hit by a ray, as a ``queries.RayHit`` (handle, point, normal, distance), or None."""
+        from . import queries
+
+        return queries.raycast(self, origin, direction, max_distance, layer_mask)
+
+    def raycast_all(self, origin: Any, direction: Any, max_distance: Any = np.inf,
+                    layer_mask: Any = ALL_LAYERS) -> list[Any]:
+        """Every body a ray enters, as ``queries.RayHit`` records sorted by distance."""
+        from . import queries
+
+        return queries.raycast_all(self, origin, direction, max_distance, layer_mask)
+
+    def bodies_containing_point(self, point: Any, layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
+        """Handles of the bodies whose solid contains a world point."""
+        from . import queries
+
+        return queries.bodies_containing_point(self, point, layer_mask)
+
+    def bodies_overlapping_box(self, lo: Any, hi: Any, layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
+        """Handles of the bodies whose bounding box overlaps the world box [lo, hi]."""
+        from . import queries
+
+        return queries.bodies_overlapping_box(self, lo, hi, layer_mask)
+
+    def bodies_overlapping_shape(self, shape: Any, position: Any, rotor: Any = None,
+                                 layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
+        """Handles of the bodies whose solid overlaps ``shape`` placed at (position, rotor)."""
+        from . import queries
+
+        return queries.bodies_overlapping_shape(self, shape, position, rotor, layer_mask)
 
 
 def shape_kind(shape: Any) -> int:
