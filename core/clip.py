@@ -143,17 +143,17 @@ def reduce_points(tangent: Array, depth: Array, valid: BoolArray, cap: int, tol:
 def tangent_basis(normal: Array) -> Array:
     """Orthonormal bases of the hyperplanes orthogonal to unit normals: (P, n) -> (P, n-1, n).
 
-    A Householder reflection H = I - 2 w w^T / (w.w) with w = u - s e_j (j the largest component of
-    u, s its sign) maps e_j to u; its other columns are an orthonormal basis of u's complement. The
-    pivot j keeps w.w >= 2 - 2/sqrt(n), far from zero, for every unit u.
+    A Householder reflection H = I - 2 w w^T / (w.w) with w = u + s e_j (j the largest component of
+    u, s its sign) maps e_j to -s u; its other columns are an orthonormal basis of u's complement.
+    Adding (not subtracting) s e_j keeps w.w = 2 + 2 |u_j| >= 2, so there is no cancellation.
     """
     P, n = normal.shape
     j = np.argmax(np.abs(normal), axis=1)
     s = np.where(normal[np.arange(P), j] >= 0.0, 1.0, -1.0)
     w = normal.copy()
-    w[np.arange(P), j] -= s
+    w[np.arange(P), j] += s
     H = np.eye(n)[None] - 2.0 * w[:, :, None] * w[:, None, :] / np.sum(w * w, axis=1)[:, None, None]
-    # rows of H (H is symmetric) other than row j; row j is s u
+    # rows of H (H is symmetric) other than row j; row j is -s u
     keep = np.ones((P, n), dtype=bool)
     keep[np.arange(P), j] = False
     return H[keep].reshape(P, n - 1, n)
