@@ -17,7 +17,6 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 from conftest import dims
-
 from ndrigid.core.algebra import Algebra
 from ndrigid.core.contacts import ManifoldPoints
 from ndrigid.core.gjk import convex_pair
@@ -138,7 +137,8 @@ def test_speculative_points_within_the_margin_only(dim: int, kernel: Kernel) -> 
 
 @KERNELS
 @dims()
-def test_feature_ids_are_stable_under_small_motion(dim: int, kernel: Kernel, rng: np.random.Generator) -> None:
+def test_feature_ids_are_stable_under_small_motion(dim: int, kernel: Kernel,
+                                                  rng: np.random.Generator) -> None:
     """A small turn (1e-3 rad in a random plane) and shift (1e-4) keep the contact's feature ids; the ids
     are unique within the pair."""
     n = dim
