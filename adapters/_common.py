@@ -141,13 +141,71 @@ class PoseStore:
         self.pending_velocity: dict[int, Velocity] = {}
 
 
-def _read_only(a: Array) -> Array:
+def _read_only(a: Any) -> Array:
     a = np.array(a, dtype=np.float64)
     a.flags.writeable = False
     return a
 
 
-class Transform:
+class _Field:
+    """A component field backed by one PoseStore column.
+
+    Reading gives the value assigned and not yet applied if there is one, else (while bound) the
+    row of this frame's snapshot, else the value given before binding. Assigning validates
+    against the bound simulation and queues the component in the store's ``pending`` dict.
+    """
+
+    def __init__(self, column: str, pending: str, check: Callable[[PoseStore, Any, str], Array],
+                 doc: str) -> None:
+        self.column, self.pending, self.check, self.__doc__ = column, pending, check, doc
+        self.name = self.attr = ""
+
+    def __set_name__(self, owner: type, name: str) -> None:
+        self.name, self.attr = name, "_" + name
+
+    def __get__(self, obj: Any, owner: type | None = None) -> Any:
+        if obj is None:
+            return self
+        value, st = getattr(obj, self.attr), obj._store
+        if value is not None or st is None:
+            return value
+        return getattr(st, self.column)[obj._slot]
+
+    def __set__(self, obj: Any, value: Any) -> None:
+        st = obj._store
+        setattr(obj, self.attr, _read_only(value if st is None else self.check(st, value, self.name)))
+        if st is not None:
+            getattr(st, self.pending)[obj._slot] = obj
+
+
+def _vector(st: PoseStore, v: Any, name: str) -> Array:
+    return as_float_array(name, v, (st.dim,))
+
+
+def _bivector(st: PoseStore, v: Any, name: str) -> Array:
+    return as_float_array(name, v, (st.alg.k,))
+
+
+def _rotor(st: PoseStore, v: Any, name: str) -> Array:
+    return st.alg.check_rotor(v, name)
+
+
+class _Bound:
+    """Base of the components that show one body's row of a PoseStore."""
+
+    __slots__ = ("_store", "_slot")
+
+    def __init__(self) -> None:
+        self._store: PoseStore | None = None
+        self._slot = -1
+
+    @property
+    def bound(self) -> bool:
+        """True while the component shows a live body."""
+        return self._store is not None
+
+
+class Transform(_Bound):
     """Where a body is: the pose game code reads (and may assign to teleport the body).
 
     ``Transform(position=None, rotor=None)`` before the body exists gives its starting pose.
@@ -156,51 +214,19 @@ class Transform:
     Assigning ``position`` or ``rotor`` teleports the body before the next step.
     """
 
-    __slots__ = ("_store", "_slot", "_position", "_rotor")
+    __slots__ = ("_position", "_rotor")
+    position = _Field("position", "pending_pose", _vector,
+                      "(n,) float: world position of the body's local origin.")
+    rotor = _Field("rotor", "pending_pose", _rotor,
+                   "(2**(n-1),) float: unit rotor of the body (x' = R x ~R).")
 
     def __init__(self, position: Any = None, rotor: Any = None) -> None:
-        self._store: PoseStore | None = None
-        self._slot = -1
+        super().__init__()
         self._position = None if position is None else _read_only(position)
         self._rotor = None if rotor is None else _read_only(rotor)
 
     def __repr__(self) -> str:
         return f"Transform(position={self.position!r}, rotor={self.rotor!r})"
-
-    @property
-    def bound(self) -> bool:
-        """True while the transform shows a live body."""
-        return self._store is not None
-
-    @property
-    def position(self) -> Any:
-        """(n,) float: world position of the body's local origin."""
-        if self._position is not None or self._store is None:
-            return self._position
-        return self._store.position[self._slot]
-
-    @position.setter
-    def position(self, value: Any) -> None:
-        st = self._store
-        p = _read_only(value if st is None else as_float_array("position", value, (st.dim,)))
-        self._position = p
-        if st is not None:
-            st.pending_pose[self._slot] = self
-
-    @property
-    def rotor(self) -> Any:
-        """(2**(n-1),) float: unit rotor of the body (x' = R x ~R)."""
-        if self._rotor is not None or self._store is None:
-            return self._rotor
-        return self._store.rotor[self._slot]
-
-    @rotor.setter
-    def rotor(self, value: Any) -> None:
-        st = self._store
-        R = _read_only(value if st is None else st.alg.check_rotor(value, "rotor"))
-        self._rotor = R
-        if st is not None:
-            st.pending_pose[self._slot] = self
 
     @property
     def matrix(self) -> Array:
@@ -230,7 +256,7 @@ class Transform:
         return pts @ M.T + (0.0 if p is None else p)
 
 
-class Velocity:
+class Velocity(_Bound):
     """How a body moves: ``linear`` (n,) velocity of the centre of mass and ``angular`` (k,) world
     angular velocity bivector, k = n(n-1)/2.
 
@@ -239,49 +265,19 @@ class Velocity:
     either sets the body's velocity before the next step (and wakes it).
     """
 
-    __slots__ = ("_store", "_slot", "_linear", "_angular")
+    __slots__ = ("_linear", "_angular")
+    linear = _Field("velocity", "pending_velocity", _vector,
+                    "(n,) float: velocity of the centre of mass, m/s.")
+    angular = _Field("angular_velocity", "pending_velocity", _bivector,
+                     "(k,) float: world angular velocity bivector, rad/s (B_ij turns e_i toward e_j).")
 
     def __init__(self, linear: Any = None, angular: Any = None) -> None:
-        self._store: PoseStore | None = None
-        self._slot = -1
+        super().__init__()
         self._linear = None if linear is None else _read_only(linear)
         self._angular = None if angular is None else _read_only(angular)
 
     def __repr__(self) -> str:
         return f"Velocity(linear={self.linear!r}, angular={self.angular!r})"
-
-    @property
-    def bound(self) -> bool:
-        """True while the component shows a live body."""
-        return self._store is not None
-
-    @property
-    def linear(self) -> Any:
-        """(n,) float: velocity of the centre of mass, m/s."""
-        if self._linear is not None or self._store is None:
-            return self._linear
-        return self._store.velocity[self._slot]
-
-    @linear.setter
-    def linear(self, value: Any) -> None:
-        st = self._store
-        self._linear = _read_only(value if st is None else as_float_array("linear", value, (st.dim,)))
-        if st is not None:
-            st.pending_velocity[self._slot] = self
-
-    @property
-    def angular(self) -> Any:
-        """(k,) float: world angular velocity bivector, rad/s (B_ij turns e_i toward e_j)."""
-        if self._angular is not None or self._store is None:
-            return self._angular
-        return self._store.angular_velocity[self._slot]
-
-    @angular.setter
-    def angular(self, value: Any) -> None:
-        st = self._store
-        self._angular = _read_only(value if st is None else as_float_array("angular", value, (st.alg.k,)))
-        if st is not None:
-            st.pending_velocity[self._slot] = self
 
 
 class EntityContact(NamedTuple):

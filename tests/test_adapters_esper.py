@@ -52,7 +52,7 @@ def body_spec(dim: int, i: int, rng: np.random.Generator) -> dict[str, Any]:
     k = dim * (dim - 1) // 2
     pos = np.zeros(dim)
     pos[0] = 0.9 * (i % 3) - 0.9
-    pos[1] = 0.4 + 0.5 * i
+    pos[1] = 0.32 + 0.5 * i  # body 0 starts just above the floor: a contact in every run
     pos[2:] = rng.uniform(-0.2, 0.2, dim - 2)
     shape = Ball(dim, 0.3) if i % 2 == 0 else Box(np.full(dim, 0.25))
     return {"shape": shape, "position": pos, "velocity": rng.uniform(-0.3, 0.3, dim),
