@@ -25,9 +25,11 @@ and attach components; everything else happens here, once, in :class:`PhysicsBri
 
 Rejected alternatives, with reasons: components holding views into the core's table break when
 the table grows (reallocation) or swap-removes (rows move); writing each entity's pose into its
-component is a Python loop of about 1 us per entity per frame, 5 % of a 1,000-body step on its own
-before any other adapter work; comparing every Velocity with last frame's value to detect changes
-is another such loop, where assignment through a property knows exactly what changed.
+component is a Python loop of 0.5 us per entity (row views) to 1.9 us (row copies) per frame,
+measured in 4-D: 0.5-1.9 ms a frame for 1,000 entities, 2-8 % of a quiet 1,000-body 4-D step on
+its own, against about 0.09 ms for the five snapshot gathers; comparing every Velocity with last
+frame's value to detect changes is another such loop, where assignment through a property knows
+exactly what changed.
 
 Rules for game code (also in the adapters' docs): assign ``velocity.linear = ...`` (the arrays
 returned are read-only, so an in-place ``velocity.linear[0] = 1`` raises instead of being silently

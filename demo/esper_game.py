@@ -169,7 +169,7 @@ def build_orchard(dim: int, seed: int = 7,
                   report_every: int = 30) -> tuple[PhysicsProcessor, Tally, list[str]]:
     """Create the orchard's entities and processors in the current esper world."""
     rng = np.random.default_rng(seed)
-    tally, lines = Tally(), []
+    tally, lines = Tally(), list[str]()
     physics = PhysicsProcessor(dim)
     esper.add_processor(Growth(dim, tally, rng), priority=20)
     esper.add_processor(Steering(), priority=10)
