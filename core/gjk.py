@@ -29,8 +29,9 @@ Method:
   when the centre is outside; inside, the facet of least penetration (largest signed distance)
   gives the normal, as the brief asks.
 
-Choice (measured, see bench/narrowphase.py and the README of the benchmark): full SAT for polytopes
-was rejected. Its mixed axes come from every (k-face of A, (n-1-k)-face of B) pair: for two 24-cells
+Choice (measured with ``python -m ndrigid.bench.narrowphase``, one shared core): GJK + EPA with the
+manifold costs about 4 ms per overlapping pair of 24-cells and 9.5 ms for 600-cells, about 0.9 ms
+for a separated pair (GJK only). Full SAT for polytopes was rejected. Its mixed axes come from every (k-face of A, (n-1-k)-face of B) pair: for two 24-cells
 96 x 96 x 2 = 18,432 axes, for two 600-cells 720 x 1200 x 2 = 1.7 million, against GJK + EPA which
 only touches the support points it needs. Facet normals alone (the cheap half of SAT) are still
 used, for the coherence preference above.
@@ -270,10 +271,11 @@ def penetration(Va: Array, Vb: Array, simplex_ia: IntArray, simplex_ib: IntArray
 # Face structure cache and manifolds
 # ---------------------------------------------------------------------------------------------
 
-_SIDES: weakref.WeakKeyDictionary[ConvexPolytope, tuple[tuple[Array, Array], ...]] = weakref.WeakKeyDictionary()
+_SideTable = tuple[tuple[Array, Array], ...]
+_SIDES: weakref.WeakKeyDictionary[ConvexPolytope, _SideTable] = weakref.WeakKeyDictionary()
 
 
-def _side_planes(shape: ConvexPolytope) -> tuple[tuple[Array, Array], ...]:
+def _side_planes(shape: ConvexPolytope) -> _SideTable:
     """Per facet: side-plane normals (K, n) and offsets (K,), local frame, built once per shape.
 
     The side plane of facet f at the ridge it shares with facet g contains the ridge and f's normal:
@@ -443,7 +445,9 @@ def convex_pair(alg: Algebra, shape_a: Any, pos_a: Any, rot_a: Any, shape_b: Any
         fi = int(np.argmin((np.asarray(inc.facet_normals) @ Ri.T) @ nr))
         P, D, codes = _face_manifold(ref, Rr, pr, fr, inc, Ri, pi, fi, margin)
         if len(P):
-            head = (np.int64(use_b) << np.int64(52)) + (np.int64(fr) << np.int64(36)) + (np.int64(fi) << np.int64(20))
+            # (reference body, reference facet, incident facet, local code) in 1 + 16 + 16 + 20 bits
+            head = (np.int64(use_b) << np.int64(52)) + (np.int64(fr) << np.int64(36)) \
+                + (np.int64(fi) << np.int64(20))
             M = len(P)
             return ManifoldPoints(np.zeros(M, np.int64), np.broadcast_to(sgn * nr, (M, n)).copy(), P, D,
                                   head + codes)

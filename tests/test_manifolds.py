@@ -103,8 +103,8 @@ def test_face_down_gives_the_corners(dim: int, kernel: Kernel) -> None:
 @KERNELS
 @dims()
 def test_crossed_features_give_one_point(dim: int, kernel: Kernel) -> None:
-    """A's lowest edge (corner in 2-D) across B's top ridge, overlapping by 0.01: one point on the
-    vertical through both, depth 0.01, normal +e_1 (from the lower box A... here B is below)."""
+    """The upper box's lowest edge (corner in 2-D) across the lower box's top ridge, overlapping by
+    0.01: one point on the vertical through both, depth 0.01, normal +e_1 (A is the lower box)."""
     n = dim
     Ra = edge_down(n)
     ha = np.full(n, 0.5)
@@ -114,7 +114,7 @@ def test_crossed_features_give_one_point(dim: int, kernel: Kernel) -> None:
     low = 0.5 * np.abs(Ra[1]).sum()  # A's support along -e_1
     pa = np.zeros(n)
     pa[1] = top + low - 0.01
-    mp = kernel(n, np.zeros(n), Rb, hb, pa, Ra, ha, 0.05)  # A (first) is the lower box B here
+    mp = kernel(n, np.zeros(n), Rb, hb, pa, Ra, ha, 0.05)  # the lower box is passed first (A)
     assert len(mp.pair) == 1
     assert np.allclose(mp.normal[0], np.eye(n)[1], atol=1e-9)
     assert np.isclose(mp.depth[0], 0.01, atol=1e-9)
