@@ -60,7 +60,8 @@ def run_boxbox_bench(dims: Sequence[int] = (3, 4, 5), pairs: int = 2000, *, repe
         mp = call()
         t = _best(call, repeats)
         rows.append({"dim": n, "pairs": pairs, "touching": int(len(np.unique(mp.pair))),
-                     "points": int(len(mp.pair)), "seconds": t, "pairs_per_s": pairs / t, "us_per_pair": 1e6 * t / pairs})
+                     "points": int(len(mp.pair)), "seconds": t, "pairs_per_s": pairs / t,
+                     "us_per_pair": 1e6 * t / pairs})
     return rows
 
 

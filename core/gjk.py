@@ -31,10 +31,10 @@ Method:
 
 Choice (measured with ``python -m ndrigid.bench.narrowphase``, one shared core): GJK + EPA with the
 manifold costs about 4 ms per overlapping pair of 24-cells and 9.5 ms for 600-cells, about 0.9 ms
-for a separated pair (GJK only). Full SAT for polytopes was rejected. Its mixed axes come from every (k-face of A, (n-1-k)-face of B) pair: for two 24-cells
-96 x 96 x 2 = 18,432 axes, for two 600-cells 720 x 1200 x 2 = 1.7 million, against GJK + EPA which
-only touches the support points it needs. Facet normals alone (the cheap half of SAT) are still
-used, for the coherence preference above.
+for a separated pair (GJK only). Full SAT for polytopes was rejected: its mixed axes come from every
+(k-face of A, (n-1-k)-face of B) pair, for two 24-cells 96 x 96 x 2 = 18,432 axes, for two 600-cells
+720 x 1200 x 2 = 1.7 million, while GJK + EPA only touches the support points it needs. Facet
+normals alone (the cheap half of SAT) are still used, for the coherence preference above.
 
 A loop over polytope pairs is the caller's; inside, support mappings are vectorised over vertices,
 subset solves over subsets and EPA updates over facets. The GJK/EPA iteration loops are inherently
@@ -135,7 +135,7 @@ def _support(Va: Array, Vb: Array, d: Array) -> tuple[Array, int, int]:
     return Va[ia] - Vb[ib], ia, ib
 
 
-def gjk_distance(Va: Array, Vb: Array) -> tuple[float, Array, Array, Array, Array]:
+def gjk_distance(Va: Array, Vb: Array) -> tuple[float, Array, Array, IntArray, IntArray]:
     """Distance between conv(Va) and conv(Vb) (world vertex sets (Na, n), (Nb, n)).
 
     Returns (distance, v, weights, ia, ib): v = a - b is the closest point of A - B (zero vector when

@@ -152,12 +152,12 @@ def _tables(n: int) -> _Tables:
                 idx.append(row_i)
                 sgn.append(row_s)
                 src.append(list(S) + [n + t for t in T])
-                a = np.zeros(n, dtype=bool)
-                a[list(S)] = True
-                b = np.zeros(n, dtype=bool)
-                b[list(T)] = True
-                in_a.append(a)
-                in_b.append(b)
+                mask_a = np.zeros(n, dtype=bool)
+                mask_a[list(S)] = True
+                mask_b = np.zeros(n, dtype=bool)
+                mask_b[list(T)] = True
+                in_a.append(mask_a)
+                in_b.append(mask_b)
     # edges of the facet orthogonal to axis j: run along axis a != j, other tangent signs free
     starts, axes = [], []
     for j in rows_all:
@@ -165,7 +165,7 @@ def _tables(n: int) -> _Tables:
         for a in rows_all:
             if a == j:
                 continue
-            others = [t for t in rows_all if t not in (a, j)]
+            others = [c for c in rows_all if c not in (a, j)]
             for signs in itertools.product((-1.0, 1.0), repeat=len(others)):
                 v = np.zeros(n)
                 v[a] = -1.0
@@ -369,7 +369,8 @@ def box_box(alg: Algebra, pos_a: Any, rot_a: Any, half_a: Any, pos_b: Any, rot_b
         return parts[0]
     out = ManifoldPoints.concat(parts, [0] * len(parts), n)
     order = np.argsort(out.pair, kind="stable")
-    return ManifoldPoints(*(f[order] for f in out))
+    return ManifoldPoints(out.pair[order], out.normal[order], out.point[order], out.depth[order],
+                          out.feature[order])
 
 
 def _edge_ends(tab: _Tables, axis: IntArray, sign: Array, half: Array
