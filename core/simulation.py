@@ -313,10 +313,8 @@ class Simulation:
     def _removal_events(self, handle: int) -> None:
         """Queue end events for the touching pairs of a body being removed (reported by the next
         step, before that step's own events)."""
-        try:
-            from .pipeline import removal_events
-        except ImportError:
-            return
+        from .pipeline import removal_events
+
         events, self.events = self.events, self._pending_events
         removal_events(self, handle)
         self._pending_events, self.events = self.events, events
@@ -668,29 +666,14 @@ def _stage_integrate_positions(sim: Simulation, dt: float) -> None:
 
 
 def default_stages() -> list[tuple[str, Stage]]:
-    """The ordered stages of a step. Collision and solver stages are added by their modules when
-    present (see :func:`_collision_stages`)."""
+    """The ordered stages of a step (see the module docstring)."""
+    from .pipeline import collision_stages, sleep_stages
+
     stages: list[tuple[str, Stage]] = [("integrate_velocities", _stage_integrate_velocities)]
-    stages += _collision_stages()
+    stages += collision_stages()
     stages.append(("integrate_positions", _stage_integrate_positions))
-    stages += _sleep_stages()
+    stages += sleep_stages()
     return stages
-
-
-def _collision_stages() -> list[tuple[str, Stage]]:
-    try:
-        from .pipeline import collision_stages
-    except ImportError:  # collision not built into this tree
-        return []
-    return collision_stages()
-
-
-def _sleep_stages() -> list[tuple[str, Stage]]:
-    try:
-        from .pipeline import sleep_stages
-    except ImportError:
-        return []
-    return sleep_stages()
 
 
 __all__ = [
