@@ -34,7 +34,7 @@ Conventions (see DEVELOPERS.md):
 from __future__ import annotations
 
 import itertools
-from functools import lru_cache
+from functools import cache
 from typing import Any
 
 import numpy as np
@@ -58,7 +58,7 @@ __all__ = [
 # ---------------------------------------------------------------------------------------------
 
 
-@lru_cache(maxsize=None)
+@cache
 def _pairs(n: int) -> NDArray[np.intp]:
     p = np.array(list(itertools.combinations(range(n), 2)), dtype=np.intp).reshape(-1, 2)
     p.setflags(write=False)
@@ -671,7 +671,8 @@ class Algebra:
         n = self.n
         M = as_float_array("M", M, (n, n))
         det = np.linalg.det(M)
-        orth = np.max(np.abs(np.einsum("...ji,...jk->...ik", M, M) - np.eye(n)), axis=(-1, -2)) if M.size else 0
+        gram = np.einsum("...ji,...jk->...ik", M, M)
+        orth = np.max(np.abs(gram - np.eye(n)), axis=(-1, -2)) if M.size else 0
         if np.any(det <= 0) or np.any(orth > 1e-6):
             raise InputError("M: expected rotation matrices (orthogonal to 1e-6, det +1), got one with "
                              f"det {float(np.min(det)) if np.size(det) else 0:.6g} and orthogonality error "

@@ -9,8 +9,9 @@ can be carried from one step to the next; ``key`` combines it with the pair's tw
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import NamedTuple, Sequence
+from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
@@ -48,7 +49,7 @@ class ManifoldPoints(NamedTuple):
         if not parts:
             return ManifoldPoints.empty(n)
         return ManifoldPoints(
-            np.concatenate([p.pair + o for p, o in zip(parts, offsets)]),
+            np.concatenate([p.pair + o for p, o in zip(parts, offsets, strict=True)]),
             np.concatenate([p.normal for p in parts]),
             np.concatenate([p.point for p in parts]),
             np.concatenate([p.depth for p in parts]),
@@ -97,7 +98,8 @@ def contact_keys(handle_a: IntArray, handle_b: IntArray, feature: IntArray) -> I
     """
     with np.errstate(over="ignore"):
         x = handle_a.astype(np.uint64) * np.uint64(0x9E3779B97F4A7C15)
-        x ^= handle_b.astype(np.uint64) + np.uint64(0x632BE59BD9B4E019) + (x << np.uint64(6)) + (x >> np.uint64(2))
+        x ^= (handle_b.astype(np.uint64) + np.uint64(0x632BE59BD9B4E019)
+              + (x << np.uint64(6)) + (x >> np.uint64(2)))
         x ^= feature.astype(np.uint64) * np.uint64(0xBF58476D1CE4E5B9)
         x ^= x >> np.uint64(31)
         x *= np.uint64(0x94D049BB133111EB)

@@ -46,7 +46,8 @@ def as_float_array(
         )
     if finite and not np.all(np.isfinite(arr)):
         bad = np.argwhere(~np.isfinite(arr))[0]
-        raise InputError(f"{name}: expected finite values, got {arr[tuple(bad)]} at index {tuple(int(i) for i in bad)}")
+        where = tuple(int(i) for i in bad)
+        raise InputError(f"{name}: expected finite values, got {arr[tuple(bad)]} at index {where}")
     return arr
 
 

@@ -59,7 +59,7 @@ def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.nd
         if len(pairs):
             ha, hb = h[pairs[:, 0]], h[pairs[:, 1]]
             lo, hi = np.minimum(ha, hb), np.maximum(ha, hb)
-            now.update(zip(lo.tolist(), hi.tolist(), [is_sensor] * len(lo)))
+            now.update(zip(lo.tolist(), hi.tolist(), [is_sensor] * len(lo), strict=True))
     before: set[tuple[int, int, bool]] = sim.caches.get("touching", set())
     for a, b, s in sorted(now - before):
         sim.events.append(ContactEvent("begin", a, b, s))
@@ -78,7 +78,8 @@ def removal_events(sim: Simulation, handle: int) -> None:
 
 
 def collision_stages() -> list[tuple[str, Stage]]:
-    return [("update_pairs", _stage_update_pairs), ("collide", _stage_collide), ("solve_contacts", _stage_solve)]
+    return [("update_pairs", _stage_update_pairs), ("collide", _stage_collide),
+            ("solve_contacts", _stage_solve)]
 
 
 def sleep_stages() -> list[tuple[str, Stage]]:

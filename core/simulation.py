@@ -17,8 +17,9 @@ the simulation exactly as it was.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -101,12 +102,14 @@ class Settings:
             if not isinstance(v, (int, np.integer)) or v < 1:
                 raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
         if not isinstance(self.relax_iterations, (int, np.integer)) or self.relax_iterations < 0:
-            raise InputError(f"settings.relax_iterations: expected an integer >= 0, got {self.relax_iterations!r}")
+            raise InputError("settings.relax_iterations: expected an integer >= 0, got "
+                             f"{self.relax_iterations!r}")
         if self.solver_batching not in ("manifold", "point", "jacobi"):
             raise InputError(f"settings.solver_batching: expected 'manifold', 'point' or 'jacobi', got "
                              f"{self.solver_batching!r}")
         if self.gyroscopic not in (_integrate.GYRO_IMPLICIT, _integrate.GYRO_EXPLICIT, _integrate.GYRO_NONE):
-            raise InputError(f"settings.gyroscopic: expected 'implicit', 'explicit' or 'none', got {self.gyroscopic!r}")
+            raise InputError("settings.gyroscopic: expected 'implicit', 'explicit' or 'none', got "
+                             f"{self.gyroscopic!r}")
         return self
 
 
@@ -259,7 +262,8 @@ class Simulation:
         ld = positive_scalar("linear_damping", linear_damping, allow_zero=True)
         ad = positive_scalar("angular_damping", angular_damping, allow_zero=True)
         for name, bits in (("layer", layer), ("mask", mask)):
-            if isinstance(bits, bool) or not isinstance(bits, (int, np.integer)) or not 0 <= int(bits) <= ALL_LAYERS:
+            is_int = isinstance(bits, (int, np.integer)) and not isinstance(bits, bool)
+            if not is_int or not 0 <= int(bits) <= ALL_LAYERS:
                 raise InputError(f"{name}: expected an integer bit mask in [0, 2**32), got {bits!r}")
 
         kind_code = shape_kind(shape)
@@ -275,8 +279,8 @@ class Simulation:
             values["radius"] = float(shape.radius)
         if code == DYNAMIC:
             if kind_code == SHAPE_HALFSPACE:
-                raise InputError("kind: a HalfSpace has no finite mass; expected kind='static' or 'kinematic', "
-                                 "got 'dynamic'")
+                raise InputError("kind: a HalfSpace has no finite mass; expected kind='static' or "
+                                 "'kinematic', got 'dynamic'")
             if density is None and mass is None:
                 density = 1000.0
             mp = shape.mass_properties(density=density, mass=mass)
@@ -352,7 +356,8 @@ class Simulation:
         r = np.full(hs.shape, -1, dtype=np.int64)
         r[ok] = self.info.handle_to_row[hs[ok]]
         if np.any(r < 0):
-            raise InputError(f"handles: expected live body handles, got removed/unknown {hs[r < 0][:5].tolist()}")
+            bad = hs[r < 0][:5].tolist()
+            raise InputError(f"handles: expected live body handles, got removed/unknown {bad}")
         return r
 
     @property
@@ -644,8 +649,8 @@ def shape_kind(shape: Any) -> int:
                       (S.ConvexPolytope, SHAPE_POLYTOPE)):
         if isinstance(shape, cls):
             return code
-    raise InputTypeError(f"shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, SimplexMesh, Compound, "
-                         f"HalfSpace), got {type(shape).__name__}")
+    raise InputTypeError("shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, SimplexMesh, "
+                         f"Compound, HalfSpace), got {type(shape).__name__}")
 
 
 def _wedge(alg: Algebra, a: Array, b: Array) -> Array:
