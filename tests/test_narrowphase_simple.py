@@ -345,3 +345,36 @@ def test_contact_rows_sorted_by_manifold_with_materials() -> None:
     assert c.manifold.max() == 1
     np.testing.assert_allclose(c.friction[c.body_b == 1], np.sqrt(0.81 * 0.25))  # geometric mean
     np.testing.assert_allclose(c.restitution[c.body_b == 2], 0.2)  # the larger coefficient
+
+
+@dims(2, 3, 4)
+def test_contact_events_through_the_simulation(dim: int) -> None:
+    """A ball dropped on the floor reports one begin event, none while it rests and sleeps, and an
+    end event once it is lifted away (events of core/pipeline.py from the touching pairs)."""
+    sim = Simulation(dim)
+    floor = sim.add_body(HalfSpace(_up(dim), 0.0), kind="static")
+    ball = sim.add_body(Ball(dim, 0.5), position=1.0 * _up(dim))
+    events = []
+    for _ in range(150):
+        sim.step()
+        events += sim.events
+    assert [(e.kind, e.handle_a, e.handle_b, e.sensor) for e in events] == [("begin", floor, ball, False)]
+    assert not sim.is_awake(ball)  # asleep on the floor, still touching: no end event
+    sim.set_pose(ball, position=5.0 * _up(dim))
+    sim.step()
+    assert [(e.kind, e.handle_a, e.handle_b) for e in sim.events] == [("end", floor, ball)]
+
+
+def test_sensor_events_through_the_simulation() -> None:
+    """A ball falling through a static sensor box: begin and end sensor events, no contact response
+    (it falls freely: y = y0 - g t^2 / 2 up to the symplectic-Euler term)."""
+    sim = Simulation(3)
+    zone = sim.add_body(Box([1.0, 0.5, 1.0]), kind="static", sensor=True)
+    ball = sim.add_body(Ball(3, 0.2), position=[0.0, 1.5, 0.0])
+    kinds = []
+    for _ in range(45):
+        sim.step()
+        kinds += [(e.kind, e.handle_a, e.handle_b, e.sensor) for e in sim.events]
+    assert kinds == [("begin", zone, ball, True), ("end", zone, ball, True)]
+    t = 45 / 60
+    assert sim.position(ball)[1] == pytest.approx(1.5 - 0.5 * 9.81 * t * t - 0.5 * 9.81 * t / 60, abs=1e-9)
