@@ -45,11 +45,13 @@ class ManifoldPoints(NamedTuple):
     @staticmethod
     def concat(parts: Sequence[ManifoldPoints], offsets: Sequence[int], n: int) -> ManifoldPoints:
         """Concatenate batches, adding ``offsets[i]`` to the pair index of batch i."""
-        parts = [p for p in parts if len(p.pair)]
+        # drop empty batches together with their offsets, so each offset stays with its batch
+        kept = [(p, o) for p, o in zip(parts, offsets, strict=True) if len(p.pair)]
+        parts = [p for p, _ in kept]
         if not parts:
             return ManifoldPoints.empty(n)
         return ManifoldPoints(
-            np.concatenate([p.pair + o for p, o in zip(parts, offsets, strict=True)]),
+            np.concatenate([p.pair + o for p, o in kept]),
             np.concatenate([p.normal for p in parts]),
             np.concatenate([p.point for p in parts]),
             np.concatenate([p.depth for p in parts]),
