@@ -1,0 +1,572 @@
+"""The pygame front end: views of a world in 2-D to 5-D, picking and dragging, overlays, headless frames.
+
+Views by dimension (slices from :mod:`ndrigid.core.slicing`):
+
+* 2-D: the world itself (its c = 0 "section"), drawn flat.
+* 3-D: the 2-D slice x_2 = w (keys Q/E move w) fills the window; an inset shows the whole 3-D world
+  projected by a fixed camera, with the slice plane marked.
+* 4-D, 5-D: the 3-D slice x_3 = w (and x_4 = v in 5-D, keys Z/C) drawn as a shaded projection with
+  back-face removal and painter's order; the right mouse button (or arrow keys) turns the camera.
+
+Picking: in flat views the body under the mouse is the one containing the slice point
+(``queries.bodies_containing_point``); in 3-D views a ray from the eye through the pixel, lying in
+the slice, is cast with ``queries.raycast``. A picked body hangs from a damped spring (a force at
+the grabbed point, ``Simulation.apply_force``) and keeps its velocity when let go, so it can be
+thrown.
+
+Everything drawn comes from the public API: the esper adapter (through :mod:`.world`), the
+Simulation's arrays and the slicing/query functions. Set ``SDL_VIDEODRIVER=dummy`` before pygame is
+imported to render without a display (``--headless`` does it).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+HELP_LINES = [
+    "mouse left    pick a body, drag it on a spring, release to throw",
+    "mouse right   turn the 3-D view (arrow keys too)",
+    "Q / E         move the slice along the last hidden axis",
+    "Z / C         move the slice along the other hidden axis (5-D)",
+    "space         pause / resume        .  single step while paused",
+    "R             reset the scene       tab / 1-3  switch scenes",
+    "P             perspective / orthographic        H  this help",
+    "esc           quit",
+]
+
+
+@dataclass
+class Grab:
+    handle: int
+    local: np.ndarray  # grabbed point in the body frame (n,)
+    depth: float  # camera depth of the grab point (3-D views)
+
+
+class App:
+    """One window (or off-screen surface) showing one scene; see the module notes."""
+
+    def __init__(self, pygame: Any, dim: int, scene: str, size: tuple[int, int], bodies: int,
+                 headless: bool = False) -> None:
+        from ndrigid.core.slicing import orbit_view
+
+        from . import scenes
+
+        self.pg = pygame
+        self.dim, self.size, self.count, self.headless = dim, size, bodies, headless
+        self.scene_names = scenes.scene_names()
+        self.scene_name = scene
+        self.offsets = np.zeros(max(0, dim - 3) if dim >= 4 else (1 if dim == 3 else 0))
+        self.yaw, self.pitch, self.perspective = 0.35, 0.42, True
+        self.inset_view = orbit_view(0.7, 0.45)
+        self.paused, self.show_help, self.step_once = False, False, False
+        self.grab: Grab | None = None
+        self.mouse = (0, 0)
+        self.step_times: list[float] = []
+        self.clock_fps = 0.0
+        self.font = pygame.font.Font(None, max(14, size[1] // 30))
+        self.small = pygame.font.Font(None, max(12, size[1] // 40))
+        self.world: Any = None
+        self._region_cache: dict[Any, Any] = {}
+        self.reset()
+
+    # -- scene ------------------------------------------------------------------------------------
+
+    def reset(self) -> None:
+        from . import scenes
+        from .world import DemoWorld
+
+        if self.world is not None:
+            self.world.close()
+        self.world = DemoWorld(self.dim)
+        self.info = scenes.build_scene(self.scene_name, self.world, self.count)
+        self.t = 0.0
+        self.grab = None
+        self._region_cache.clear()
+
+    def switch(self, name: str) -> None:
+        self.scene_name = name
+        self.reset()
+
+    @property
+    def sim(self) -> Any:
+        return self.world.sim
+
+    def flat(self) -> Any:
+        from ndrigid.core.slicing import axis_flat
+
+        return axis_flat(self.dim, list(self.offsets))
+
+    # -- stepping ---------------------------------------------------------------------------------
+
+    def advance(self, seconds: float) -> None:
+        if self.paused and not self.step_once:
+            return
+        self.step_once = False
+        if self.info.tick is not None:
+            self.info.tick(self.world, self.t)
+        self._spring()
+        self.world.step(1.0 / 60.0 if self.headless else seconds)
+        self.t += 1.0 / 60.0
+        self.step_times.append(float(self.sim.profile.total))
+
+    def _spring(self) -> None:
+        """A damped spring from the grabbed point to the mouse, plus the body's weight (so it holds)."""
+        g = self.grab
+        if g is None:
+            return
+        sim = self.sim
+        try:
+            R = sim.rotation(g.handle)
+        except ValueError:
+            self.grab = None
+            return
+        p = sim.position(g.handle) + R @ g.local
+        target = self.mouse_world(g.depth)
+        if target is None:
+            return
+        m = 1.0 / float(sim.bodies.inv_mass[sim.row(g.handle)])
+        k, c = 60.0, 10.0
+        force = m * (k * (target - p) - c * sim.velocity(g.handle) - sim.gravity)
+        sim.apply_force(g.handle, force, point=p)
+
+    # -- screen mapping ---------------------------------------------------------------------------
+
+    def scale(self) -> float:
+        return self.size[0] / self.info.span
+
+    def to_screen(self, xy: np.ndarray) -> np.ndarray:
+        """Pixels (..., 2) of view-plane points (..., 2) (slice coordinates in flat views)."""
+        cx, cy = self.size[0] / 2, self.size[1] / 2
+        s = self.scale()
+        return np.stack([cx + (xy[..., 0] - self.info.centre[0]) * s,
+                         cy - (xy[..., 1] - self.info.centre[1]) * s], axis=-1)
+
+    def from_screen(self, px: tuple[int, int]) -> np.ndarray:
+        cx, cy = self.size[0] / 2, self.size[1] / 2
+        s = self.scale()
+        return np.array([(px[0] - cx) / s + self.info.centre[0], -(px[1] - cy) / s + self.info.centre[1]])
+
+    def camera(self) -> Any:
+        from ndrigid.core.slicing import make_camera, orbit_view
+
+        target = np.array([self.info.centre[0], self.info.centre[1], 0.0])
+        return make_camera(orbit_view(self.yaw, self.pitch), target, self.info.span * 1.6, self.perspective)
+
+    def project3(self, P: np.ndarray, cam: Any) -> tuple[np.ndarray, np.ndarray]:
+        """Pixels (P, 2) and depths (P,) of 3-D slice points in the main 3-D view."""
+        from ndrigid.core.slicing import project_points
+
+        xy, depth = project_points(P, cam)
+        s = self.scale()
+        return np.stack([self.size[0] / 2 + xy[:, 0] * s, self.size[1] / 2 - xy[:, 1] * s], axis=1), depth
+
+    def mouse_ray(self) -> tuple[np.ndarray, np.ndarray]:
+        """Eye ray through the mouse pixel in 3-D slice coordinates: origin (3,), unit direction (3,)."""
+        cam = self.camera()
+        s = self.scale()
+        q = np.array([(self.mouse[0] - self.size[0] / 2) / s, -(self.mouse[1] - self.size[1] / 2) / s, 0.0])
+        on_plane = cam.target + q @ cam.view
+        if cam.perspective:
+            o = cam.eye
+            d = on_plane - o
+        else:
+            o = on_plane + cam.distance * cam.view[2]
+            d = -cam.view[2]
+        return o, d / np.linalg.norm(d)
+
+    def mouse_world(self, depth: float) -> np.ndarray | None:
+        """World point under the mouse: in the slice plane (flat views) or at ``depth`` (3-D views)."""
+        flat = self.flat()
+        m = flat.slice_dim
+        if m == 2:
+            return flat.to_world(self.from_screen(self.mouse))
+        o, d = self.mouse_ray()
+        cam = self.camera()
+        along = float(d @ -cam.view[2])
+        if along <= 1e-9:
+            return None
+        return flat.to_world(o + d * (depth / along))
+
+    # -- input ------------------------------------------------------------------------------------
+
+    def pick(self) -> None:
+        from ndrigid.core import DYNAMIC
+        from ndrigid.core.queries import bodies_containing_point, raycast
+
+        sim, flat = self.sim, self.flat()
+        handle, point, depth = None, None, 0.0
+        if flat.slice_dim == 2:
+            x = flat.to_world(self.from_screen(self.mouse))
+            hits = [h for h in bodies_containing_point(sim, x).tolist()
+                    if sim.bodies.kind[sim.row(h)] == DYNAMIC]
+            if hits:
+                handle, point = hits[0], x
+        else:
+            o, d = self.mouse_ray()
+            hit = raycast(sim, flat.to_world(o), d @ flat.frame)
+            if hit is not None and sim.bodies.kind[sim.row(hit.handle)] == DYNAMIC:
+                handle, point = hit.handle, hit.point
+                cam = self.camera()
+                depth = float((flat.to_slice(hit.point) - cam.eye) @ -cam.view[2])
+        if handle is not None and point is not None:
+            local = sim.rotation(handle).T @ (point - sim.position(handle))
+            self.grab = Grab(handle, local, depth)
+
+    def handle_event(self, ev: Any) -> bool:
+        """React to one pygame event; False means quit."""
+        pg = self.pg
+        if ev.type == pg.QUIT:
+            return False
+        if ev.type == pg.MOUSEMOTION:
+            if ev.buttons[2] and self.dim >= 4:
+                self.yaw += ev.rel[0] * 0.01
+                self.pitch = float(np.clip(self.pitch + ev.rel[1] * 0.01, -1.4, 1.4))
+            self.mouse = ev.pos
+        elif ev.type == pg.MOUSEBUTTONDOWN and ev.button == 1:
+            self.mouse = ev.pos
+            self.pick()
+        elif ev.type == pg.MOUSEBUTTONUP and ev.button == 1:
+            self.grab = None  # the body keeps the spring's velocity: a throw
+        elif ev.type == pg.KEYDOWN:
+            k = ev.key
+            if k == pg.K_ESCAPE:
+                return False
+            if k == pg.K_SPACE:
+                self.paused = not self.paused
+            elif k == pg.K_PERIOD:
+                self.step_once = True
+            elif k == pg.K_r:
+                self.reset()
+            elif k == pg.K_TAB:
+                i = self.scene_names.index(self.scene_name)
+                self.switch(self.scene_names[(i + 1) % len(self.scene_names)])
+            elif pg.K_1 <= k <= pg.K_9 and k - pg.K_1 < len(self.scene_names):
+                self.switch(self.scene_names[k - pg.K_1])
+            elif k == pg.K_h or k == pg.K_F1:
+                self.show_help = not self.show_help
+            elif k == pg.K_p:
+                self.perspective = not self.perspective
+        return True
+
+    def held_keys(self, seconds: float) -> None:
+        pg = self.pg
+        keys = pg.key.get_pressed()
+        rate = 0.8 * seconds
+        if len(self.offsets):
+            self.offsets[-1] += rate * (keys[pg.K_e] - keys[pg.K_q])
+            if len(self.offsets) > 1:
+                self.offsets[0] += rate * (keys[pg.K_c] - keys[pg.K_z])
+        self.yaw += 1.5 * seconds * (keys[pg.K_RIGHT] - keys[pg.K_LEFT])
+        self.pitch = float(np.clip(self.pitch + 1.5 * seconds * (keys[pg.K_DOWN] - keys[pg.K_UP]), -1.4, 1.4))
+
+    # -- drawing ----------------------------------------------------------------------------------
+
+    def draw(self, surf: Any) -> None:
+        from . import palette as P
+
+        surf.fill(P.NIGHT_SLATE)
+        if self.flat().slice_dim == 2:
+            self.draw_flat(surf)
+            if self.dim == 3:
+                self.draw_inset(surf)
+        else:
+            self.draw_solid(surf)
+        self.draw_status(surf)
+        if self.show_help:
+            self.draw_help(surf)
+
+    def _halfspace_polygon(self, normal: np.ndarray, offset: float, lo: np.ndarray, hi: np.ndarray) -> Any:
+        from ndrigid.core.slicing import halfspace_region
+
+        key = (tuple(np.round(normal, 6)), round(offset, 6), tuple(lo), tuple(hi))
+        if key not in self._region_cache:
+            self._region_cache[key] = halfspace_region(normal, offset, lo, hi)
+        return self._region_cache[key]
+
+    def draw_flat(self, surf: Any) -> None:
+        """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces."""
+        from ndrigid.core.slicing import slice_world
+
+        from . import palette as P
+
+        pg, sim = self.pg, self.sim
+        flat = self.flat()
+        span = self.info.span
+        lo = np.array([self.info.centre[0] - span, self.info.centre[1] - span])
+        hi = np.array([self.info.centre[0] + span, self.info.centre[1] + span])
+        grabbed = self.grab.handle if self.grab else -1
+        for rec in slice_world(sim, flat).records():
+            col = self.world.colours.get(rec.handle, P.BEDROCK)
+            edge = P.SIGNAL_AMBER if rec.handle == grabbed else P.OUTLINE_INK
+            if rec.kind == "halfspace":
+                if not np.any(rec.normal):
+                    continue
+                reg = self._halfspace_polygon(rec.normal, rec.offset, lo, hi)
+                if reg is not None and reg.outline is not None:
+                    pg.draw.polygon(surf, col, self.to_screen(reg.vertices[reg.outline]).tolist())
+                    ring = self.to_screen(reg.vertices[reg.outline]).tolist()
+                    pg.draw.polygon(surf, P.BEDROCK_EDGE, ring, 1)
+            elif rec.kind == "ball":
+                c = self.to_screen(rec.centre)
+                r = max(1, int(rec.radius * self.scale()))
+                pg.draw.circle(surf, col, c.tolist(), r)
+                pg.draw.circle(surf, edge, c.tolist(), r, 1 if edge is P.OUTLINE_INK else 2)
+                axis = sim.rotation(rec.handle)[:, 0] @ flat.frame.T  # the body's e_0 axis in the slice
+                pg.draw.line(surf, P.mix(col, P.OUTLINE_INK, 0.5), c.tolist(),
+                             (c + np.array([axis[0], -axis[1]]) * r).tolist(), 2)
+            elif rec.outline is not None and len(rec.outline) >= 3:
+                pts = self.to_screen(rec.vertices[rec.outline]).tolist()
+                pg.draw.polygon(surf, col, pts)
+                pg.draw.polygon(surf, edge, pts, 1 if edge is P.OUTLINE_INK else 2)
+        if self.grab is not None:
+            self._draw_spring(surf)
+
+    def _draw_spring(self, surf: Any) -> None:
+        from . import palette as P
+
+        g, sim, flat = self.grab, self.sim, self.flat()
+        assert g is not None
+        p = sim.position(g.handle) + sim.rotation(g.handle) @ g.local
+        if flat.slice_dim == 2:
+            a = self.to_screen(flat.to_slice(p))
+        else:
+            a = self.project3(flat.to_slice(p)[None], self.camera())[0][0]
+        self.pg.draw.line(surf, P.SIGNAL_AMBER, a.tolist(), self.mouse, 2)
+        self.pg.draw.circle(surf, P.SIGNAL_AMBER, self.mouse, 4)
+
+    def _solid_faces(self, flat: Any, cam: Any, project: Any,
+                     span_box: tuple[np.ndarray, np.ndarray]) -> list:
+        """Draw list [(depth, kind, data)] of a 3-D slice: visible faces, balls, half-space regions."""
+        from ndrigid.core.slicing import face_soup, facing_camera, slice_world
+
+        from . import palette as P
+
+        ws = slice_world(self.sim, flat)
+        soup = face_soup(ws)
+        items: list = []
+        light = cam.view[2] * 0.4 + np.array([0.3, 0.8, 0.2])
+        light /= np.linalg.norm(light)
+        grabbed = self.grab.handle if self.grab else -1
+        if len(soup.faces):
+            vis = np.flatnonzero(facing_camera(soup.normals, soup.centres, cam))
+            px, _ = project(soup.points)
+            _, fdepth = project(soup.centres[vis])
+            lit = soup.normals[vis] @ light
+            for g, d, lv in zip(vis.tolist(), fdepth.tolist(), lit.tolist(), strict=True):
+                f = soup.faces[g]
+                h = int(soup.handles[g])
+                col = P.shade(self.world.colours.get(h, P.BEDROCK), lv)
+                items.append((d, "poly", (px[f[f >= 0]].tolist(), col, h == grabbed)))
+        if len(soup.balls_radius):
+            bp, bd = project(soup.balls_centre)
+            balls = zip(bp.tolist(), bd.tolist(), soup.balls_radius.tolist(), soup.balls_handle.tolist(),
+                        strict=True)
+            for c, d, r, h in balls:
+                rp = r * self.scale() * (cam.distance / max(d, 1e-6) if cam.perspective else 1.0)
+                items.append((d, "ball", (c, rp, self.world.colours.get(h, P.BEDROCK), h == grabbed)))
+        for bt in ws.batches:
+            if bt.kind != "halfspace":
+                continue
+            assert bt.normals is not None and bt.offsets is not None
+            for nrm, off in zip(bt.normals[bt.hit], bt.offsets[bt.hit], strict=True):
+                if not np.any(nrm):
+                    continue
+                reg = self._halfspace_polygon(nrm, float(off), *span_box)
+                if reg is None:
+                    continue
+                cen = np.stack([reg.vertices[f].mean(axis=0) for f in reg.faces])
+                keep = facing_camera(reg.face_normals, cen, cam)
+                px, _ = project(reg.vertices)
+                _, dep = project(cen)
+                for f, ok, d, nr in zip(reg.faces, keep, dep, reg.face_normals, strict=True):
+                    if ok:
+                        col = P.shade(P.BEDROCK, float(nr @ light))
+                        items.append((float(d), "poly", (px[f].tolist(), col, False)))
+        return items
+
+    def _paint(self, surf: Any, items: list, thin: bool = False) -> None:
+        from ndrigid.core.slicing import paint_order
+
+        from . import palette as P
+
+        pg = self.pg
+        for i in paint_order([it[0] for it in items]).tolist():
+            _, kind, data = items[i]
+            if kind == "poly":
+                pts, col, hot = data
+                if len(pts) >= 3:
+                    pg.draw.polygon(surf, col, pts)
+                    if not thin:
+                        pg.draw.polygon(surf, P.SIGNAL_AMBER if hot else P.mix(col, P.OUTLINE_INK, 0.6), pts,
+                                        2 if hot else 1)
+            else:
+                c, rp, col, hot = data
+                r = max(1, int(rp))
+                pg.draw.circle(surf, P.shade(col, 0.55), c, r)
+                glint = (c[0] - r * 0.3, c[1] - r * 0.3)
+                pg.draw.circle(surf, P.shade(col, 1.0), glint, max(1, int(r * 0.45)))
+                pg.draw.circle(surf, P.SIGNAL_AMBER if hot else P.OUTLINE_INK, c, r, 2 if hot else 1)
+
+    def draw_solid(self, surf: Any) -> None:
+        """4-D and 5-D: the 3-D slice, shaded, back faces removed, painter's order."""
+        cam = self.camera()
+        span = self.info.span
+        c = self.info.centre
+        box = (np.array([c[0] - span * 0.6, -1.0, -2.5]), np.array([c[0] + span * 0.6, 0.5 * span, 2.5]))
+        items = self._solid_faces(self.flat(), cam, lambda P: self.project3(P, cam), box)
+        self._paint(surf, items)
+        if self.grab is not None:
+            self._draw_spring(surf)
+
+    def draw_inset(self, surf: Any) -> None:
+        """3-D worlds: the whole world projected in a corner, with the slice plane x_2 = w outlined."""
+        from ndrigid.core.slicing import axis_flat, make_camera, project_points
+
+        from . import palette as P
+
+        pg = self.pg
+        W, H = self.size[0] // 3, self.size[1] // 3
+        x0, y0 = self.size[0] - W - 8, 8
+        inset = pg.Surface((W, H))
+        inset.fill(P.DEEP_SLATE)
+        span = self.info.span
+        c = self.info.centre
+        cam = make_camera(self.inset_view, np.array([c[0], c[1], 0.0]), span * 1.2, True)
+        s = W / span
+
+        def project(Q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            xy, d = project_points(Q, cam)
+            return np.stack([W / 2 + xy[:, 0] * s, H / 2 - xy[:, 1] * s], axis=1), d
+
+        box = (np.array([c[0] - span * 0.6, -0.5, -2.5]), np.array([c[0] + span * 0.6, 0.0, 2.5]))
+        self._paint(inset, self._solid_faces(axis_flat(3, []), cam, project, box), thin=True)
+        w = float(self.offsets[0])
+        corners = np.array([[c[0] - span / 2, -0.2, w], [c[0] + span / 2, -0.2, w],
+                            [c[0] + span / 2, span * 0.5, w], [c[0] - span / 2, span * 0.5, w]])
+        pg.draw.polygon(inset, P.SIGNAL_AMBER, project(corners)[0].tolist(), 1)
+        pg.draw.rect(inset, P.FADED_CHALK, inset.get_rect(), 1)
+        surf.blit(inset, (x0, y0))
+        surf.blit(self.small.render("whole 3-D world", True, P.FADED_CHALK), (x0 + 6, y0 + H - 16))
+
+    def draw_status(self, surf: Any) -> None:
+        from . import palette as P
+        from . import scenes
+
+        sim = self.sim
+        contacts = sim.contacts.count if sim.contacts is not None else 0
+        names = "x%d" if self.dim >= 3 else ""
+        first = self.dim - len(self.offsets)
+        sl = "  ".join(f"{names % (first + i)}={v:+.2f}" for i, v in enumerate(self.offsets))
+        fps = "headless" if self.headless else f"{self.clock_fps:5.1f} fps"
+        text = (f"{fps}   step {1e3 * sim.profile.total:5.2f} ms   bodies {sim.count}   "
+                f"contacts {contacts}   {self.dim}-D   slice {sl or 'none (whole world)'}"
+                f"{'   PAUSED' if self.paused else ''}")
+        bar = self.pg.Surface((self.size[0], self.font.get_height() + 8))
+        bar.fill(P.DEEP_SLATE)
+        bar.blit(self.font.render(text, True, P.CHALK), (8, 4))
+        surf.blit(bar, (0, self.size[1] - bar.get_height()))
+        title = scenes.scene_title(self.scene_name)
+        surf.blit(self.small.render(f"{title}   (H: help)", True, P.FADED_CHALK), (8, 8))
+
+    def draw_help(self, surf: Any) -> None:
+        from . import palette as P
+
+        lh = self.font.get_height() + 2
+        panel = self.pg.Surface((int(self.size[0] * 0.8), lh * (len(HELP_LINES) + 2)))
+        panel.fill(P.DEEP_SLATE)
+        panel.blit(self.font.render("keys", True, P.SIGNAL_AMBER), (12, 6))
+        for i, line in enumerate(HELP_LINES):
+            panel.blit(self.font.render(line, True, P.CHALK), (12, 6 + lh * (i + 1)))
+        surf.blit(panel, (int(self.size[0] * 0.1), int(self.size[1] * 0.15)))
+
+
+def _parse(argv: list[str] | None) -> argparse.Namespace:
+    from . import scenes
+
+    ap = argparse.ArgumentParser(prog="python -m ndrigid.demo", description="ndrigid scenes in 2-D to 5-D")
+    ap.add_argument("--dim", type=int, default=4, choices=[2, 3, 4, 5], help="dimension of the world")
+    ap.add_argument("--scene", default="rockfall", choices=scenes.scene_names())
+    ap.add_argument("--bodies", type=int, default=18, help="dynamic bodies in the scene")
+    ap.add_argument("--size", default="960x600", help="window size WxH")
+    ap.add_argument("--headless", action="store_true", help="render off-screen PNG frames, no display")
+    ap.add_argument("--frames", type=int, default=120, help="frames to render when headless")
+    ap.add_argument("--out", default="demo_frames", help="folder for headless PNG frames")
+    ap.add_argument("--every", type=int, default=30, help="save every k-th frame (0: only the last)")
+    return ap.parse_args(argv)
+
+
+def run_headless(dim: int, scene: str, frames: int, out: str | Path, size: tuple[int, int] = (640, 400),
+                 bodies: int = 18, every: int = 0) -> dict[str, Any]:
+    """Render ``frames`` frames off-screen; save PNGs to ``out``; return the step-time summary.
+
+    The result holds ``frames``, ``last`` (path of the last PNG), ``step_ms`` (mean, median, max of
+    the Simulation's step time) and ``app`` (the App, for inspection).
+    """
+    os.environ.setdefault("SDL_VIDEODRIVER", "dummy")
+    os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
+    import pygame
+
+    pygame.init()
+    try:
+        app = App(pygame, dim, scene, size, bodies, headless=True)
+        surf = pygame.Surface(size)
+        out = Path(out)
+        out.mkdir(parents=True, exist_ok=True)
+        last = out / f"{scene}_{dim}d_last.png"
+        for f in range(frames):
+            app.advance(1.0 / 60.0)
+            if (every and f % every == 0) or f == frames - 1:
+                app.draw(surf)
+                pygame.image.save(surf, str(out / f"{scene}_{dim}d_{f:04d}.png" if f != frames - 1 else last))
+        st = np.array(app.step_times) * 1e3
+        summary = {"frames": frames, "last": last, "app": app,
+                   "step_ms": {"mean": float(st.mean()), "median": float(np.median(st)),
+                               "max": float(st.max())}}
+    finally:
+        pygame.quit()
+    return summary
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parse(argv)
+    try:
+        w, h = (int(v) for v in args.size.lower().split("x"))
+    except ValueError:
+        print(f"--size: expected WxH like 960x600, got {args.size!r}", file=sys.stderr)
+        return 2
+    if args.headless:
+        res = run_headless(args.dim, args.scene, args.frames, args.out, (w, h), args.bodies, args.every)
+        s = res["step_ms"]
+        print(f"{args.scene} {args.dim}-D: {res['frames']} frames, step time mean {s['mean']:.2f} ms, "
+              f"median {s['median']:.2f} ms, max {s['max']:.2f} ms; last frame {res['last']}")
+        return 0
+    import pygame
+
+    pygame.init()
+    screen = pygame.display.set_mode((w, h))
+    pygame.display.set_caption("ndrigid")
+    app = App(pygame, args.dim, args.scene, (w, h), args.bodies)
+    clock = pygame.time.Clock()
+    running = True
+    last = time.perf_counter()
+    while running:
+        now = time.perf_counter()
+        dt, last = min(now - last, 0.1), now
+        for ev in pygame.event.get():
+            running = app.handle_event(ev) and running
+        app.held_keys(dt)
+        app.advance(dt)
+        app.draw(screen)
+        pygame.display.flip()
+        clock.tick(60)
+        app.clock_fps = clock.get_fps()
+    pygame.quit()
+    return 0
