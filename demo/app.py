@@ -498,7 +498,7 @@ def _parse(argv: list[str] | None) -> argparse.Namespace:
     ap.add_argument("--size", default="960x600", help="window size WxH")
     ap.add_argument("--headless", action="store_true", help="render off-screen PNG frames, no display")
     ap.add_argument("--frames", type=int, default=120, help="frames to render when headless")
-    ap.add_argument("--out", default="demo_frames", help="folder for headless PNG frames")
+    ap.add_argument("--out", default="out/demo", help="folder for headless PNG frames")
     ap.add_argument("--every", type=int, default=30, help="save every k-th frame (0: only the last)")
     return ap.parse_args(argv)
 
@@ -511,6 +511,7 @@ def run_headless(dim: int, scene: str, frames: int, out: str | Path, size: tuple
     the Simulation's step time) and ``app`` (the App, for inspection).
     """
     os.environ.setdefault("SDL_VIDEODRIVER", "dummy")
+    os.environ.setdefault("PYGAME_HIDE_SUPPORT_PROMPT", "1")
     os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
     import pygame
 
@@ -535,6 +536,18 @@ def run_headless(dim: int, scene: str, frames: int, out: str | Path, size: tuple
     return summary
 
 
+def _display_available() -> bool:
+    """Whether a window can open: an explicit SDL video driver, a desktop platform, or an X11 /
+    Wayland display on Linux."""
+    if os.environ.get("SDL_VIDEODRIVER", "") not in ("", "dummy", "offscreen"):
+        return True
+    if os.environ.get("SDL_VIDEODRIVER") in ("dummy", "offscreen"):
+        return False
+    if sys.platform.startswith(("win", "darwin")):
+        return True
+    return bool(os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"))
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parse(argv)
     try:
@@ -542,6 +555,10 @@ def main(argv: list[str] | None = None) -> int:
     except ValueError:
         print(f"--size: expected WxH like 960x600, got {args.size!r}", file=sys.stderr)
         return 2
+    if not args.headless and not _display_available():
+        print("no display found: rendering headless frames instead (pass --headless to say so)",
+              file=sys.stderr)
+        args.headless = True
     if args.headless:
         res = run_headless(args.dim, args.scene, args.frames, args.out, (w, h), args.bodies, args.every)
         s = res["step_ms"]
