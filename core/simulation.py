@@ -68,9 +68,10 @@ class Settings:
         allow_sleep: let resting islands sleep.
         sleep_linear_speed: speed below which a body counts as resting, m/s.
         sleep_time: rest time before an island sleeps, s.
-        solver_batching: how contact rows are batched for the vectorised solver: "manifold"
-            (default: colour manifolds, mass splitting inside one), "point" (colour single points,
-            pure Gauss-Seidel) or "jacobi" (one batch, mass splitting); see core/solver.py.
+        solver_batching: how contact rows are batched for the vectorised solver: "point"
+            (default: colour single points, pure Gauss-Seidel), "manifold" (colour manifolds, mass
+            splitting inside one: faster, but stacks jitter) or "jacobi" (one batch, mass
+            splitting); see core/solver.py.
     """
 
     dt: float = 1.0 / 60.0
@@ -89,7 +90,7 @@ class Settings:
     allow_sleep: bool = True
     sleep_linear_speed: float = 0.05
     sleep_time: float = 0.5
-    solver_batching: str = "manifold"
+    solver_batching: str = "point"
 
     def validated(self) -> Settings:
         for name in ("dt", "contact_hertz", "contact_damping_ratio", "max_push_speed", "sleep_time"):

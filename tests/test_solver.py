@@ -358,7 +358,8 @@ def test_column_statics_all_batchings(dim, batching):
 
 @dims()
 def test_warm_start_matches_keys_and_reprojects_tangent_impulse(dim, rng):
-    """Warm start: impulses follow their key, unknown keys start at zero, and the old tangent
+    """Warm start: impulses follow their key (or, for a new key, the old row of the same pair
+    within the match distance), unknown rows start at zero, and the old tangent
     impulse (a world vector) is projected onto the new tangent plane, t - (t . d) d (common
     practice: orthogonal projection)."""
     from ndrigid.core.solver import _warm_values
@@ -376,14 +377,24 @@ def test_warm_start_matches_keys_and_reprojects_tangent_impulse(dim, rng):
     tilted /= np.linalg.norm(tilted)
     up = np.zeros(dim)
     up[1] = 1.0
-    # row 0: same key, tilted normal; row 1: a new feature (new key)
-    c = contacts_for(sim, [0, 0], [1, 1], [tilted, up], np.zeros((2, dim)), [0.0, 0.0], feature=[0, 7])
-    lam_n, lam_t, _ = _warm_values(c, old, True)
+    # row 0: same key, tilted normal; row 1: a new feature (new key) far from the old point;
+    # row 2: a new feature next to the old point (inherits by proximity)
+    far = np.zeros(dim)
+    far[0] = 1.0
+    near = np.zeros(dim)
+    near[0] = 0.01
+    c = contacts_for(sim, [0, 0, 0], [1, 1, 1], [tilted, up, up], np.stack([np.zeros(dim), far, near]),
+                     [0.0, 0.0, 0.0], feature=[0, 7, 8])
+    from ndrigid.core.solver import _pair_keys
+
+    pair = _pair_keys(sim.bodies, c)
+    lam_n, lam_t, _ = _warm_values(c, pair, old, True, 0.02)
     t = old["tangent"][0]
     assert lam_n[0] == old["normal"][0]
     np.testing.assert_allclose(lam_t[0], t - (t @ tilted) * tilted, atol=1e-12)
     assert lam_n[1] == 0.0 and np.all(lam_t[1] == 0.0)
-    lam_n, lam_t, _ = _warm_values(c, old, False)
+    assert lam_n[2] == old["normal"][0]
+    lam_n, lam_t, _ = _warm_values(c, pair, old, False, 0.02)
     assert np.all(lam_n == 0.0) and np.all(lam_t == 0.0)
 
 
