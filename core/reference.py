@@ -1,0 +1,1294 @@
+"""The scalar reference path: every collision and solver stage written plainly, one item at a time.
+
+This module states each algorithm of the vectorised stages once more, as plain Python loops over
+bodies, pairs and contacts, with small numpy only for the vector algebra of one item (an n-vector,
+the n x n rotation of one body, the k x k inverse inertia of one body, the n x (n + k) Jacobian of
+one contact row). It is the readable statement of what the batched kernels compute and the
+yardstick they are tested against (tests/test_reference.py: same contact keys, points, normals,
+depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is not meant to be fast;
+``python -m ndrigid.bench pile --compare`` prints how much faster the vectorised path is.
+
+:func:`use_reference_stages` swaps these in for a Simulation's stages:
+
+* ``integrate_velocities`` / ``integrate_positions``: body by body, the same semi-implicit Euler
+  step and the same one-Newton-step implicit gyroscopic update (core/integrate.py);
+* ``update_pairs``: every pair of bounded bodies by their fattened bounding boxes (all pairs, no
+  grid), every half-space against every bounded body, the same fattening and filter rules
+  (core/broadphase.py);
+* ``collide``: pair by pair, the kernel of the pair's kind written for one pair: ball/ball,
+  ball/half-space, ball/box, box/half-space, polytope/half-space, and box/box by the separating-axis
+  test over all C(2n, n-1) candidate axes (the mixed axes as generalised cross products, i.e.
+  determinants, rather than the vectorised path's minor tables), with the same coherence
+  preference, the same clipping of the incident and reference face edges, the same reduction and
+  feature ids (core/narrowphase.py, core/sat.py, core/clip.py). Pairs involving a general convex
+  polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`, which are per pair already;
+* ``solve_contacts``: contact by contact, the same prepare / warm start / biased iterations /
+  relax / restitution / position push sequence with the same mass splitting (core/solver.py).
+
+Invariants kept equal to the vectorised path, so that results agree to rounding:
+
+* Iteration orders: pairs in the broadphase's sorted order, collider pairs of a compound in
+  row-major order, points of a pair in the kernel's slot order; solver rows sorted by (colour,
+  manifold, row), as the vectorised ``np.lexsort`` does.
+* Within a solver batch every row reads the body velocities as they were at the start of the batch
+  and the per-row velocity changes are summed per manifold before they are added: this is the mass
+  splitting of the vectorised solver stated literally (for the "point" batching each manifold
+  segment is one row). For "manifold" and "point" batching no dynamic body appears in two
+  segments of a batch, so this is also plain Gauss-Seidel across segments.
+* The colouring (which rows share a batch) is the same greedy Luby rule, written as loops over the
+  items; it decides the order only. Reused, not restated: bookkeeping with no physics in it, namely
+  :func:`broadphase.shape_cloud` (the cached local point cloud of a polytope, mesh or compound),
+  :class:`narrowphase.ShapeStore` (compound piece tables and mesh hulls), and
+  :func:`sleep.wake_touched` (waking sleeping islands hit by awake bodies).
+
+Choices: exact ties (two candidate axes with the same overlap to the last bit, two reduction
+candidates at the same distance) are broken by "first in order" as ``argmin``/``argmax`` do; a tie
+that the two paths see differently by one rounding step can pick a different but equally valid
+point, so the tests use scenes with small random tilts where ties do not occur. Rejected: calling
+the vectorised kernels with batches of one (it would test nothing), and a shared helper layer
+between the two paths (a bug in it would hide from the comparison).
+"""
+
+from __future__ import annotations
+
+import itertools
+from typing import Any, NamedTuple
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .algebra import Algebra
+from .components import (
+    DYNAMIC,
+    KINEMATIC,
+    SHAPE_BALL,
+    SHAPE_BOX,
+    SHAPE_COMPOUND,
+    SHAPE_HALFSPACE,
+    SHAPE_MESH,
+    SHAPE_POLYTOPE,
+    STATIC,
+    Bodies,
+)
+from .contacts import ContactSet
+from .errors import InputTypeError
+
+Array = NDArray[np.float64]
+IntArray = NDArray[np.int64]
+
+__all__ = [
+    "collide_reference",
+    "integrate_positions_reference",
+    "integrate_velocities_reference",
+    "solve_contacts_reference",
+    "update_pairs_reference",
+    "use_reference_stages",
+]
+
+_MASK64 = (1 << 64) - 1
+
+
+def _empty_pairs() -> IntArray:
+    return np.zeros((0, 2), dtype=np.int64)
+
+
+# =============================================================================================
+# integration (core/integrate.py), body by body
+# =============================================================================================
+
+
+def _gyroscopic_one(alg: Algebra, w: Array, inertia: Array, tau: Array, dt: float, mode: str) -> Array:
+    """Body-frame angular velocity (k,) after one step of I dw/dt = w x (I w) + tau."""
+    if mode == "none":
+        return w + dt * tau / inertia
+    if mode == "explicit":
+        return w + dt * (alg.commutator(w, inertia * w) + tau) / inertia
+    # implicit: torque first, then one Newton step on f(w2) = I (w2 - w1) - h w2 x (I w2)
+    w1 = w + dt * tau / inertia
+    L1 = inertia * w1
+    f = -dt * alg.commutator(w1, L1)
+    J = -dt * (alg.commutator_matrix(w1) * inertia[None, :] - alg.commutator_matrix(L1))
+    J[np.arange(alg.k), np.arange(alg.k)] += inertia
+    w2 = w1 - np.linalg.solve(J, f)
+    # the momentum turned exactly by the Newton estimate's rotation, energy never raised
+    L2 = alg.rotate_bivectors(alg.rotor(-dt * w2), L1)
+    w2 = L2 / inertia
+    E1, E2 = float(L1 @ w1), float(L2 @ w2)
+    return w2 * np.sqrt(min(1.0, E1 / (E2 if E2 > 0.0 else 1.0)))
+
+
+def integrate_velocities_reference(alg: Algebra, b: Bodies, gravity: Array, dt: float,
+                                   gyroscopic: str = "implicit") -> None:
+    """Gravity, forces, damping and the gyroscopic term, body by body (awake dynamic bodies)."""
+    for i in range(b.count):
+        if b.kind[i] != DYNAMIC or not b.awake[i]:
+            continue
+        v = b.velocity[i] + dt * (gravity + b.inv_mass[i] * b.force[i])
+        b.velocity[i] = v * (1.0 / (1.0 + dt * b.linear_damping[i]))
+        inv_i = b.inv_inertia[i]
+        if not np.any(inv_i > 0.0):
+            continue
+        C = alg.rotor_to_compound(alg.rotor_mul(b.rotor[i], b.principal_rotor[i]))  # (k, k)
+        w_body = C.T @ b.angular_velocity[i]
+        tau_body = C.T @ b.torque[i]
+        # a locked plane (zero inverse inertia) keeps zero velocity
+        locked = inv_i <= 0.0
+        inertia = np.where(locked, 1.0, 1.0 / np.where(locked, 1.0, inv_i))
+        w_body = np.where(locked, 0.0, w_body)
+        tau_body = np.where(locked, 0.0, tau_body)
+        w2 = np.where(locked, 0.0, _gyroscopic_one(alg, w_body, inertia, tau_body, dt, gyroscopic))
+        w2 = w2 * (1.0 / (1.0 + dt * b.angular_damping[i]))
+        b.angular_velocity[i] = C @ w2
+
+
+def integrate_positions_reference(alg: Algebra, b: Bodies, dt: float) -> None:
+    """Centre of mass by h v, rotor by exp(-h/2 B) R, body by body (awake dynamic and kinematic)."""
+    for i in range(b.count):
+        if b.kind[i] not in (DYNAMIC, KINEMATIC) or not b.awake[i]:
+            continue
+        c_local = b.local_centroid[i]
+        com = b.position[i] + b.rotation[i] @ c_local + dt * b.velocity[i]
+        R = alg.rotor_normalize(alg.rotor_mul(alg.rotor(dt * b.angular_velocity[i]), b.rotor[i]), steps=1)
+        M = alg.rotor_to_matrix(R)
+        b.rotor[i] = R
+        b.rotation[i] = M
+        b.position[i] = com - M @ c_local
+
+
+# =============================================================================================
+# broadphase (core/broadphase.py): all pairs by fattened boxes
+# =============================================================================================
+
+
+def _world_box(bodies: Bodies, shapes: list[Any], caches: dict[str, Any], i: int) -> tuple[Array, Array]:
+    """Tight world bounding box (lo, hi), each (n,), of body i; half-spaces are unbounded."""
+    from .broadphase import shape_cloud
+
+    kind = int(bodies.shape_kind[i])
+    p, M = bodies.position[i], bodies.rotation[i]
+    if kind == SHAPE_HALFSPACE:
+        inf = np.full(p.shape[0], np.inf)
+        return -inf, inf
+    if kind == SHAPE_BALL:
+        r = float(bodies.radius[i])
+        return p - r, p + r
+    if kind == SHAPE_BOX:
+        # along world axis a the rotated box reaches sum_j |M_aj| h_j from its centre
+        ext = np.abs(M) @ bodies.half_extents[i]
+        return p - ext, p + ext
+    sid = int(bodies.shape_id[i])
+    P, rad = shape_cloud(shapes[sid], caches, sid)
+    lo = np.full(p.shape[0], np.inf)
+    hi = np.full(p.shape[0], -np.inf)
+    for x, r in zip(P, rad, strict=True):  # loop over the shape's cloud points
+        w = M @ x
+        lo = np.minimum(lo, w - r)
+        hi = np.maximum(hi, w + r)
+    centre = p + 0.5 * (hi + lo)
+    ext = 0.5 * (hi - lo)
+    return centre - ext, centre + ext
+
+
+def _reach(bodies: Bodies, i: int) -> float:
+    """Distance from the centre of mass that bounds body i (infinite for a half-space)."""
+    return float(bodies.radius[i]) + float(np.linalg.norm(bodies.local_centroid[i]))
+
+
+def _fattening(bodies: Bodies, settings: Any, dt: float, i: int) -> float:
+    """Margin plus the distance any point of body i can travel in one step."""
+    margin = max(float(settings.aabb_margin), 0.5 * float(settings.speculative_distance))
+    reach = _reach(bodies, i)
+    v = float(np.linalg.norm(bodies.velocity[i]))
+    w = float(np.linalg.norm(bodies.angular_velocity[i]))
+    spin = w * (reach if np.isfinite(reach) else 0.0) if w > 0.0 else 0.0
+    return margin + dt * (v + spin)
+
+
+def _passes_filter(bodies: Bodies, a: int, b: int) -> bool:
+    """Layer/mask bits both ways, not two inert bodies, and at least one body that responds."""
+    if a == b:
+        return False
+    if not (int(bodies.layer[a]) & int(bodies.mask[b])) or not (int(bodies.layer[b]) & int(bodies.mask[a])):
+        return False
+    inert_a = bodies.kind[a] == STATIC or not bodies.awake[a]
+    inert_b = bodies.kind[b] == STATIC or not bodies.awake[b]
+    if inert_a and inert_b:
+        return False
+    responds_a = bodies.kind[a] == DYNAMIC or bool(bodies.sensor[a])
+    responds_b = bodies.kind[b] == DYNAMIC or bool(bodies.sensor[b])
+    return responds_a or responds_b
+
+
+def _world_plane(bodies: Bodies, shape: Any, i: int) -> tuple[Array, float]:
+    """World unit normal (n,) and offset of half-space body i: u_w = M u, d_w = d + u_w . p."""
+    u = bodies.rotation[i] @ np.asarray(shape.normal)
+    return u, float(shape.offset) + float(u @ bodies.position[i])
+
+
+def update_pairs_reference(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any,
+                           caches: dict[str, Any], dt: float) -> IntArray:
+    """Candidate pairs (P, 2) int64 of body rows (a < b), sorted: every pair of fattened boxes that
+    overlap on every axis, and every (body, half-space) whose fattened box reaches the fattened plane."""
+    N = bodies.count
+    if N < 2:
+        return _empty_pairs()
+    n = alg.n
+    lo, hi, fat = [], [], []
+    for i in range(N):
+        tlo, thi = _world_box(bodies, shapes, caches, i)
+        f = _fattening(bodies, settings, dt, i)
+        lo.append(tlo - f)
+        hi.append(thi + f)
+        fat.append(f)
+    is_half = [int(bodies.shape_kind[i]) == SHAPE_HALFSPACE for i in range(N)]
+    bounded = [i for i in range(N) if not is_half[i]]
+    found: set[tuple[int, int]] = set()
+    for x, i in enumerate(bounded):
+        for j in bounded[x + 1:]:
+            if all(max(lo[i][ax] - hi[j][ax], lo[j][ax] - hi[i][ax]) <= 0.0 for ax in range(n)) \
+                    and _passes_filter(bodies, i, j):
+                found.add((min(i, j), max(i, j)))
+    for h in range(N):
+        if not is_half[h]:
+            continue
+        u, d = _world_plane(bodies, shapes[int(bodies.shape_id[h])], h)
+        for i in bounded:
+            c = 0.5 * (lo[i] + hi[i])
+            e = 0.5 * (hi[i] - lo[i])
+            low = float(c @ u - e @ np.abs(u))  # the box's lowest point along the plane normal
+            if low <= d + fat[h] and _passes_filter(bodies, i, h):
+                found.add((min(i, h), max(i, h)))
+    if not found:
+        return _empty_pairs()
+    return np.array(sorted(found), dtype=np.int64).reshape(-1, 2)
+
+
+# =============================================================================================
+# narrowphase (core/narrowphase.py, core/sat.py, core/clip.py): pair by pair
+# =============================================================================================
+
+
+class _Collider(NamedTuple):
+    """One convex collider of a body: a whole body, or one compound piece posed in the world."""
+
+    kind: int
+    pos: Array  # (n,) world position of its local origin
+    rot: Array  # (n, n) local -> world
+    radius: float
+    half: Array  # (n,) box half-extents
+    plane_u: Array  # (n,) local half-space normal
+    plane_d: float
+    key: int  # shape key in the ShapeStore
+    piece: int  # compound piece index, -1 for a whole body
+
+
+class _Point(NamedTuple):
+    """One contact point: unit normal (n,) from A to B, point (n,), depth (> 0 overlap), feature id."""
+
+    normal: Array
+    point: Array
+    depth: float
+    feature: int
+
+
+def _colliders_of_body(bodies: Bodies, store: Any, i: int) -> list[_Collider]:
+    """The colliders of body i: one, or one per compound piece (x = p + M (t + M_piece y))."""
+    n = bodies.position.shape[1]
+    kind = int(bodies.shape_kind[i])
+    sid = int(bodies.shape_id[i])
+    p, M = bodies.position[i].copy(), bodies.rotation[i].copy()
+    zero = np.zeros(n)
+    if kind == SHAPE_COMPOUND:
+        kinds, t, Mp, radii, half, keys = store.pieces(sid)
+        out = []
+        for q in range(len(kinds)):  # loop over the compound's pieces
+            out.append(_Collider(int(kinds[q]), p + M @ t[q], M @ Mp[q], float(radii[q]), half[q].copy(),
+                                 zero, 0.0, int(keys[q]), q))
+        return [_with_plane(c, store) for c in out]
+    if kind == SHAPE_MESH:  # a mesh collides as its convex hull
+        return [_Collider(SHAPE_POLYTOPE, p, M, float(bodies.radius[i]), bodies.half_extents[i].copy(), zero,
+                          0.0, int(store.hull_key(sid)), -1)]
+    whole = _Collider(kind, p, M, float(bodies.radius[i]), bodies.half_extents[i].copy(), zero, 0.0, sid, -1)
+    return [_with_plane(whole, store)]
+
+
+def _with_plane(c: _Collider, store: Any) -> _Collider:
+    if c.kind != SHAPE_HALFSPACE:
+        return c
+    s = store.get(c.key)
+    return c._replace(plane_u=np.asarray(s.normal, dtype=np.float64), plane_d=float(s.offset))
+
+
+def _plane_of(c: _Collider) -> tuple[Array, float]:
+    u = c.rot @ c.plane_u
+    return u, c.plane_d + float(u @ c.pos)
+
+
+def _ball_ball(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    """Normal along the centre line (+e_1 for coincident centres); the point midway between surfaces."""
+    d = B.pos - A.pos
+    dist = float(np.linalg.norm(d))
+    if dist > 0.0:
+        nrm = d / dist
+    else:
+        nrm = np.zeros_like(d)
+        nrm[1] = 1.0
+    depth = A.radius + B.radius - dist
+    if not -depth < margin:
+        return []
+    return [_Point(nrm, 0.5 * (A.pos + B.pos + nrm * (A.radius - B.radius)), depth, 0)]
+
+
+def _ball_halfspace(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    """Ball A on half-space B: normal -u, depth r - (u . c - d), point midway to the plane."""
+    u, d = _plane_of(B)
+    s = float(u @ A.pos) - d  # height of the centre above the plane
+    depth = A.radius - s
+    if not -depth < margin:
+        return []
+    return [_Point(-u, A.pos - u * (0.5 * (A.radius + s)), depth, 0)]
+
+
+def _ball_box(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    """Ball A against box B: clamp the centre into the box (its frame); a centre inside leaves
+    through the face of least penetration. Feature: base-3 code of the per-axis state."""
+    n = A.pos.shape[0]
+    h = B.half
+    x = B.rot.T @ (A.pos - B.pos)
+    q = np.clip(x, -h, h)
+    off = x - q
+    dist = float(np.linalg.norm(off))
+    state = [1 if x[i] > h[i] else (-1 if x[i] < -h[i] else 0) for i in range(n)]
+    if dist <= 0.0:  # centre inside the box
+        pen = h - np.abs(x)
+        ax = int(np.argmin(pen))
+        sgn = 1.0 if x[ax] >= 0.0 else -1.0
+        unit = np.zeros(n)
+        unit[ax] = sgn
+        q[ax] = sgn * h[ax]
+        dist = -float(pen[ax])
+        state = [0] * n
+        state[ax] = int(sgn)
+    else:
+        unit = off / dist
+    depth = A.radius - dist
+    if not -depth < margin:
+        return []
+    out_w = B.rot @ unit
+    box_pt = B.pos + B.rot @ q
+    ball_pt = A.pos - out_w * A.radius
+    feature = sum((state[i] + 1) * 3 ** i for i in range(n))
+    return [_Point(-out_w, 0.5 * (box_pt + ball_pt), depth, feature)]
+
+
+def _vertex_cap(n: int) -> int:
+    return min(1 << (n - 1), 8)
+
+
+def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int) -> list[_Point]:
+    """Vertices (V, n) of A against the plane (u, d) of B: those whose height s is below the margin,
+    at most ``cap`` of them (the deepest, then farthest-point sampling in the plane)."""
+    V = world.shape[0]
+    s = [float(world[v] @ u) - d for v in range(V)]
+    valid = [s[v] < margin for v in range(V)]
+    if sum(valid) > cap:
+        tang = [world[v] - float(world[v] @ u) * u for v in range(V)]
+        first = max((v for v in range(V) if valid[v]), key=lambda v: (-s[v], -v))  # deepest, first on ties
+        chosen = {first}
+        gap = [float(np.sum((tang[v] - tang[first]) ** 2)) for v in range(V)]
+        for _ in range(cap - 1):
+            nxt = max((v for v in range(V) if valid[v] and v not in chosen), key=lambda v: (gap[v], -v))
+            chosen.add(nxt)
+            gap = [min(gap[v], float(np.sum((tang[v] - tang[nxt]) ** 2))) for v in range(V)]
+        valid = [v in chosen for v in range(V)]
+    return [_Point(-u, world[v] - u * (0.5 * s[v]), -s[v], v) for v in range(V) if valid[v]]
+
+
+def _box_corners(c: _Collider) -> Array:
+    """The 2^n world corners of a box collider; vertex v has +h_i where bit i of v is set."""
+    n = c.pos.shape[0]
+    out = np.empty((1 << n, n))
+    for v in range(1 << n):
+        local = np.array([c.half[i] if (v >> i) & 1 else -c.half[i] for i in range(n)])
+        out[v] = c.pos + c.rot @ local
+    return out
+
+
+def _box_halfspace(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    u, d = _plane_of(B)
+    return _vertices_plane(_box_corners(A), u, d, margin, _vertex_cap(A.pos.shape[0]))
+
+
+def _polytope_halfspace(A: _Collider, B: _Collider, margin: float, store: Any) -> list[_Point]:
+    u, d = _plane_of(B)
+    V = np.asarray(store.get(A.key).vertices)
+    world = np.array([A.pos + A.rot @ x for x in V])
+    return _vertices_plane(world, u, d, margin, _vertex_cap(A.pos.shape[0]))
+
+
+def _convex(alg: Algebra, A: _Collider, B: _Collider, margin: float, store: Any) -> list[_Point]:
+    """Ball, box or polytope A against a box or polytope B: the per-pair GJK/EPA kernel."""
+    from .gjk import ball_convex, convex_pair
+
+    sb = store.get(B.key)
+    if A.kind == SHAPE_BALL:
+        mp = ball_convex(alg, A.pos, A.radius, sb, B.pos, B.rot, margin)
+    else:
+        mp = convex_pair(alg, store.get(A.key), A.pos, A.rot, sb, B.pos, B.rot, margin)
+    return [_Point(mp.normal[j], mp.point[j], float(mp.depth[j]), int(mp.feature[j]))
+            for j in range(len(mp.pair))]
+
+
+# -- box/box: separating axes, clipped face manifolds --------------------------------------------
+
+# coherence tolerances of the axis choice, as in core/sat.py: A's faces over B's by 2 % + 1e-5,
+# faces over mixed axes by 5 % + 1e-4; mixed axes whose raw cross product is shorter are skipped
+_FACE_REL, _FACE_ABS = 0.02, 1e-5
+_MIXED_REL, _MIXED_ABS = 0.05, 1e-4
+_DEGENERATE = 1e-5
+_MIXED_FLAG = 1 << 40
+
+
+def _mixed_axis_sets(n: int) -> list[tuple[tuple[int, ...], tuple[int, ...]]]:
+    """(S, T) of every mixed candidate axis, in the kernel's order: k axes S of A, n-1-k of B."""
+    return [(S, T) for k in range(n - 2, 0, -1) for S in itertools.combinations(range(n), k)
+            for T in itertools.combinations(range(n), n - 1 - k)]
+
+
+def _cross(span: Array) -> Array:
+    """Generalised cross product (n,) of n-1 vectors, the columns of ``span`` (n, n-1):
+    u_m = det[span, e_m] (the Hodge dual of their wedge)."""
+    n = span.shape[0]
+    return np.array([np.linalg.det(np.column_stack([span, np.eye(n)[:, m]])) for m in range(n)])
+
+
+def _face_edges(n: int, j: int) -> list[tuple[Array, int]]:
+    """Edges of the facet orthogonal to axis j: (start sign pattern (n,), axis it runs along).
+
+    In the kernel's order: run axis a != j ascending, then the signs of the other tangent axes in
+    lexicographic order of (-1, +1); the start has -1 on its own axis, 0 on axis j.
+    """
+    out = []
+    for a in range(n):
+        if a == j:
+            continue
+        others = [c for c in range(n) if c not in (a, j)]
+        for signs in itertools.product((-1.0, 1.0), repeat=len(others)):
+            v = np.zeros(n)
+            v[a] = -1.0
+            v[others] = signs
+            out.append((v, a))
+    return out
+
+
+def _clip_one(f0: list[float], f1: list[float]) -> tuple[float, float, int, int, bool]:
+    """Clip one segment against half-spaces given by signed plane values at its ends (<= 0 inside):
+    entry and exit parameters, the planes that set them (-1: not clipped) and whether anything is left."""
+    t_in, t_out, p_in, p_out = -1.0, 2.0, 0, 0
+    empty = False
+    for q, (a, b) in enumerate(zip(f0, f1, strict=True)):
+        out0, out1 = a > 0.0, b > 0.0
+        if out0 and out1:
+            empty = True
+        elif out0:  # enters through this plane
+            t = a / (a - b)
+            if t > t_in:
+                t_in, p_in = t, q
+        elif out1:  # leaves through this plane
+            t = a / (a - b)
+            if t < t_out:
+                t_out, p_out = t, q
+    if t_in < 0.0:
+        t_in, p_in = 0.0, -1
+    if t_out > 1.0:
+        t_out, p_out = 1.0, -1
+    return t_in, t_out, p_in, p_out, (not empty) and t_in <= t_out
+
+
+def _slab_clip(x0: Array, x1: Array, half: Array, skip: int, start: Array, run: int, edge: int
+               ) -> tuple[float, float, bool, int, int]:
+    """Clip the segment x0 -> x1 against |x_i| <= h_i for every axis i but ``skip``.
+
+    Planes 2i (x_i - h_i) and 2i + 1 (-x_i - h_i); returns t_in, t_out, ok and the feature codes of
+    the two ends: a face vertex (its vertex bits) where unclipped, else 2^n + edge * 2n + plane.
+    """
+    n = x0.shape[0]
+    f0: list[float] = []
+    f1: list[float] = []
+    for i in range(n):
+        if i == skip:  # the normal axis bounds nothing
+            f0 += [-1.0, -1.0]
+            f1 += [-1.0, -1.0]
+        else:
+            f0 += [x0[i] - half[i], -x0[i] - half[i]]
+            f1 += [x1[i] - half[i], -x1[i] - half[i]]
+    t_in, t_out, p_in, p_out, ok = _clip_one(f0, f1)
+    bits = sum(1 << i for i in range(n) if start[i] > 0.0)
+    bits_end = bits | (1 << run)
+    code_in = bits if p_in < 0 else (1 << n) + edge * 2 * n + p_in
+    code_out = bits_end if p_out < 0 else (1 << n) + edge * 2 * n + p_out
+    return t_in, t_out, ok, code_in, code_out
+
+
+def _reduce_points(tang: list[Array], depth: list[float], valid: list[bool], codes: list[int], cap: int,
+                   tol: float) -> list[bool]:
+    """At most ``cap`` candidates: the first of each feature code, then the deepest, then greedily
+    the one farthest (in the tangent space) from all kept so far while farther than ``tol``."""
+    K = len(depth)
+    seen: set[int] = set()
+    live = []
+    for q in range(K):  # slots repeating a code of the pair are duplicates (same vertex, other edge)
+        if valid[q] and codes[q] not in seen:
+            seen.add(codes[q])
+            live.append(q)
+    keep = [False] * K
+    if not live:
+        return keep
+    first = live[0]
+    for q in live:
+        if depth[q] > depth[first]:
+            first = q
+    keep[first] = True
+    mind = {q: float(np.sum((tang[q] - tang[first]) ** 2)) for q in live}
+    for _ in range(min(cap, len(live)) - 1):
+        nxt = live[0]
+        for q in live:
+            if mind[q] > mind[nxt]:
+                nxt = q
+        if not mind[nxt] > tol * tol:
+            break
+        keep[nxt] = True
+        for q in live:
+            mind[q] = min(mind[q], float(np.sum((tang[q] - tang[nxt]) ** 2)))
+    return keep
+
+
+def _box_box(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    """Separating-axis test of one box pair over all C(2n, n-1) axes, then its manifold.
+
+    Works in A's frame, where A's axes are the basis and B's axes are the columns of C = R_A^T R_B.
+    """
+    n = A.pos.shape[0]
+    ha, hb = A.half, B.half
+    C = A.rot.T @ B.rot
+    d = A.rot.T @ (B.pos - A.pos)
+    # face axes: overlap r_A + r_B - |u . d| for u = e_i (A) and u = c_j (B)
+    over_a = [ha[i] + sum(abs(C[i, j]) * hb[j] for j in range(n)) - abs(d[i]) for i in range(n)]
+    over_b = [hb[j] + sum(abs(C[i, j]) * ha[i] for i in range(n)) - abs(float(C[:, j] @ d)) for j in range(n)]
+    ia = min(range(n), key=lambda i: (over_a[i], i))
+    ib = min(range(n), key=lambda j: (over_b[j], j))
+    da, db = over_a[ia], over_b[ib]
+    use_b = db < da - (_FACE_REL * abs(da) + _FACE_ABS)
+    dface = db if use_b else da
+    # mixed axes: the normal of span(e_S, c_T) by the generalised cross product
+    best_m, dm, u_m, gn_m = -1, np.inf, np.zeros(n), 0.0
+    for ax, (S, T) in enumerate(_mixed_axis_sets(n)):
+        span = np.column_stack([np.eye(n)[:, list(S)], C[:, list(T)]])
+        u = _cross(span)
+        u[list(S)] = 0.0  # exactly zero on its own spanning axes (a repeated column)
+        gn = float(np.linalg.norm(u))
+        if not gn > _DEGENERATE:  # nearly parallel directions: a duplicate of a face axis
+            continue
+        w = C.T @ u
+        w[list(T)] = 0.0
+        over = (float(ha @ np.abs(u)) + float(hb @ np.abs(w)) - abs(float(u @ d))) / gn
+        if over < dm:
+            best_m, dm, u_m, gn_m = ax, over, u, gn
+    use_m = best_m >= 0 and dm < dface - (_MIXED_REL * abs(dface) + _MIXED_ABS)
+    depth = dm if use_m else dface
+    if not depth > -margin:  # separated by more than the margin along some axis
+        return []
+    if use_m:
+        return _box_box_mixed(A, B, C, d, best_m, u_m / gn_m, dm)
+    return _box_box_face(A, B, C, d, use_b, ia, ib, margin)
+
+
+def _box_box_mixed(A: _Collider, B: _Collider, C: Array, d: Array, ax: int, u: Array,
+                   depth: float) -> list[_Point]:
+    """One point midway between the closest points of the two support faces (A's frame)."""
+    n = A.pos.shape[0]
+    S, T = _mixed_axis_sets(n)[ax]
+    w = C.T @ u
+    w[list(T)] = 0.0
+    if float(u @ d) < 0.0:  # from A to B
+        u, w = -u, -w
+    ha, hb = A.half, B.half
+    sa = np.where(u >= 0.0, 1.0, -1.0)  # A's support face along +u
+    sb = np.where(w > 0.0, -1.0, 1.0)  # B's support face along -u
+    in_a = np.isin(np.arange(n), S)
+    in_b = np.isin(np.arange(n), T)
+    a0 = np.where(in_a, 0.0, sa * ha)
+    b0 = d + C @ np.where(in_b, 0.0, sb * hb)
+    # a0 + E_S alpha - (b0 + C_T beta) = lam u, for (alpha, beta, lam)
+    Mx = np.column_stack([np.eye(n)[:, list(S)], -C[:, list(T)], -u])
+    sol = np.linalg.solve(Mx, b0 - a0)
+    alpha = np.zeros(n)
+    beta = np.zeros(n)
+    alpha[list(S)] = np.clip(sol[: len(S)], -ha[list(S)], ha[list(S)])
+    beta[list(T)] = np.clip(sol[len(S): n - 1], -hb[list(T)], hb[list(T)])
+    pa = a0 + alpha
+    pb = b0 + C @ beta
+    point = A.pos + A.rot @ (0.5 * (pa + pb))
+    code_a = sum(1 << i for i in range(n) if sa[i] > 0)
+    code_b = sum(1 << i for i in range(n) if sb[i] > 0)
+    feature = _MIXED_FLAG + (ax << (2 * n)) + (code_a << n) + code_b
+    return [_Point(A.rot @ u, point, depth, feature)]
+
+
+def _box_box_face(A: _Collider, B: _Collider, C: Array, d: Array, flip: bool, ia: int, ib: int,
+                  margin: float) -> list[_Point]:
+    """Clipped face manifold of one box pair, in the reference box's frame (see core/sat.py)."""
+    n = A.pos.shape[0]
+    # reference frame: Q = R_ref^T R_inc (incident axes as columns), e = incident centre
+    if flip:
+        Q, e, h_ref, h_inc, m = C.T, -(C.T @ d), B.half, A.half, ib
+    else:
+        Q, e, h_ref, h_inc, m = C, d, A.half, B.half, ia
+    s = 1.0 if e[m] >= 0.0 else -1.0  # the reference normal s e_m points at the incident box
+    qm = Q[m]  # the reference axis in incident coordinates
+    jn = int(np.argmax(np.abs(qm)))  # the incident axis most aligned with the normal
+    sig = -1.0 if s * qm[jn] > 0.0 else 1.0  # its face that looks back at the reference face
+    nref = np.zeros(n)
+    nref[m] = s
+    pts: list[Array] = []
+    dep: list[float] = []
+    ok: list[bool] = []
+    code: list[int] = []
+    # incident face edges clipped against the reference face's side slab
+    ins, outs = [], []
+    for edge, (start, run) in enumerate(_face_edges(n, jn)):
+        st = start.copy()
+        st[jn] = sig
+        y0 = st * h_inc
+        y1 = y0.copy()
+        y1[run] = -y0[run]
+        x0, x1 = e + Q @ y0, e + Q @ y1
+        t_in, t_out, okk, c_in, c_out = _slab_clip(x0, x1, h_ref, m, st, run, edge)
+        ins.append((x0 + t_in * (x1 - x0), okk, c_in))
+        outs.append((x0 + t_out * (x1 - x0), okk, c_out))
+    for end, okk, cc in ins + outs:
+        dp = h_ref[m] - s * end[m]
+        pts.append(end + 0.5 * dp * nref)
+        dep.append(float(dp))
+        ok.append(okk)
+        code.append(cc)
+    # reference face edges slid along the normal onto the incident face's plane, clipped there
+    span = (1 << n) + (n - 1) * (1 << (n - 2)) * 2 * n
+    qn = s * qm
+    target = sig * h_inc[jn]
+    ins, outs = [], []
+    for edge, (start, run) in enumerate(_face_edges(n, m)):
+        st = start.copy()
+        st[m] = s
+        r0 = st * h_ref
+        r1 = r0.copy()
+        r1[run] = -r0[run]
+        g0, g1 = Q.T @ (r0 - e), Q.T @ (r1 - e)
+        t0 = (target - g0[jn]) / qn[jn]
+        t1 = (target - g1[jn]) / qn[jn]
+        u_in, u_out, okk, k_in, k_out = _slab_clip(g0 + t0 * qn, g1 + t1 * qn, h_inc, jn, st, run, edge)
+        ins.append((r0 + u_in * (r1 - r0), t0 + u_in * (t1 - t0), okk, k_in))
+        outs.append((r0 + u_out * (r1 - r0), t0 + u_out * (t1 - t0), okk, k_out))
+    for end, height, okk, cc in ins + outs:
+        pts.append(end + 0.5 * height * nref)  # the incident surface lies |height| below
+        dep.append(float(-height))
+        ok.append(okk)
+        code.append(cc + span)
+    ok = [o and dp > -margin for o, dp in zip(ok, dep, strict=True)]
+    tang = [np.delete(p, m) for p in pts]
+    keep = _reduce_points(tang, dep, ok, code, _vertex_cap(n), 1e-6 * float(np.max(h_ref)))
+    chosen = [(pts[q], dep[q], code[q]) for q in range(len(pts)) if keep[q]]
+    if not chosen:  # no candidate survived (5-D faces crossed at right angles, see core/sat.py)
+        x, dp = _fallback_point(Q, e, h_ref, h_inc, m, s, jn, sig)
+        if dp > -margin:
+            chosen = [(x, dp, 2 * span)]
+    ref_face = m + (n if s < 0 else 0)
+    inc_face = jn + (n if sig < 0 else 0)
+    head = ((2 * n if flip else 0) + ref_face) * 2 * n + inc_face
+    pos_r, rot_r = (B.pos, B.rot) if flip else (A.pos, A.rot)
+    normal = rot_r[:, m] * (s * (-1.0 if flip else 1.0))
+    return [_Point(normal, pos_r + rot_r @ x, dp, head * (2 * span + 1) + cc) for x, dp, cc in chosen]
+
+
+def _fallback_point(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: int, s: float, jn: int, sig: float
+                    ) -> tuple[Array, float]:
+    """One point of the incident face inside the reference prism by 16 alternating projections."""
+    lim = h_ref.copy()
+    lim[m] = np.inf
+    ilo, ihi = -h_inc.copy(), h_inc.copy()
+    ilo[jn] = ihi[jn] = sig * h_inc[jn]
+    x = e.copy()
+    for _ in range(16):
+        x = np.clip(x, -lim, lim)
+        y = np.clip(Q.T @ (x - e), ilo, ihi)
+        x = e + Q @ y
+    dep = float(h_ref[m] - s * x[m])
+    met = bool(np.all(np.abs(x) <= lim + 1e-6 * float(np.max(h_ref))))
+    if not (met or dep > 0.0):
+        return x, -np.inf
+    x = x.copy()
+    x[m] += 0.5 * s * dep
+    return x, dep
+
+
+# -- dispatch, features, keys ---------------------------------------------------------------------
+
+
+def _collide_pair(alg: Algebra, ca: _Collider, cb: _Collider, margin: float, store: Any) -> list[_Point]:
+    """Contact points of one collider pair, normals from ``ca`` to ``cb``: the lower kind code is
+    A inside, and the normals of a swapped pair are negated."""
+    swap = ca.kind > cb.kind
+    A, B = (cb, ca) if swap else (ca, cb)
+    lo, hi = A.kind, B.kind
+    if lo == SHAPE_BALL and hi == SHAPE_BALL:
+        pts = _ball_ball(A, B, margin)
+    elif lo == SHAPE_BALL and hi == SHAPE_BOX:
+        pts = _ball_box(A, B, margin)
+    elif lo == SHAPE_BALL and hi == SHAPE_HALFSPACE:
+        pts = _ball_halfspace(A, B, margin)
+    elif lo == SHAPE_BOX and hi == SHAPE_HALFSPACE:
+        pts = _box_halfspace(A, B, margin)
+    elif lo == SHAPE_POLYTOPE and hi == SHAPE_HALFSPACE:
+        pts = _polytope_halfspace(A, B, margin, store)
+    elif lo == SHAPE_BOX and hi == SHAPE_BOX:
+        pts = _box_box(A, B, margin)
+    elif hi == SHAPE_POLYTOPE:
+        pts = _convex(alg, A, B, margin, store)
+    else:  # two half-spaces
+        pts = []
+    if swap:
+        pts = [p._replace(normal=-p.normal) for p in pts]
+    return pts
+
+
+def _to_int64(x: int) -> int:
+    x &= _MASK64
+    return x - (1 << 64) if x >= 1 << 63 else x
+
+
+def _mix_pieces(feature: int, piece_a: int, piece_b: int) -> int:
+    """Feature id made unique across compound piece pairs (64-bit multiply-xorshift of the pieces)."""
+    if piece_a < 0 and piece_b < 0:
+        return feature
+    x = ((piece_a + 1) * 0xD6E8FEB86659FD93) & _MASK64
+    x ^= ((piece_b + 1) * 0xA0761D6478BD642F + (x >> 29)) & _MASK64
+    x ^= x >> 32
+    return _to_int64((feature & _MASK64) ^ x)
+
+
+def _contact_key(ha: int, hb: int, feature: int) -> int:
+    """Persistent int64 key of a contact point from the two handles and its feature id (the
+    splitmix-style mix of contacts.contact_keys, in Python integers)."""
+    x = (ha * 0x9E3779B97F4A7C15) & _MASK64
+    x ^= (hb + 0x632BE59BD9B4E019 + ((x << 6) & _MASK64) + (x >> 2)) & _MASK64
+    x ^= ((feature & _MASK64) * 0xBF58476D1CE4E5B9) & _MASK64
+    x ^= x >> 31
+    x = (x * 0x94D049BB133111EB) & _MASK64
+    x ^= x >> 29
+    return _to_int64(x)
+
+
+def _pair_margin(bodies: Bodies, a: int, b: int, settings: Any, dt: float) -> float:
+    """speculative_distance + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)."""
+    speed = []
+    for i in (a, b):
+        reach = _reach(bodies, i)
+        reach = reach if np.isfinite(reach) else 0.0  # a half-space's spin is not bounded here
+        speed.append(float(np.linalg.norm(bodies.velocity[i]))
+                     + float(np.linalg.norm(bodies.angular_velocity[i])) * reach)
+    return float(settings.speculative_distance) + dt * (speed[0] + speed[1])
+
+
+def _carry_inert(bodies: Bodies, cache: dict[str, Any], name: str, now: list[tuple[int, int]]) -> IntArray:
+    """Add to ``now`` last step's pairs in list ``name`` whose bodies are both still inert and at
+    the same rows (they were not collided this step, so they still touch)."""
+    N = bodies.count
+    out = list(now)
+    prev = cache.get(name)
+    carried = []
+    if prev is not None:
+        for (ra, rb), (ha, hb) in zip(prev[0].tolist(), prev[1].tolist(), strict=True):
+            if ra >= N or rb >= N or bodies.handle[ra] != ha or bodies.handle[rb] != hb:
+                continue
+            if all(bodies.kind[r] == STATIC or not bodies.awake[r] for r in (ra, rb)):
+                carried.append((ra, rb))
+    if carried:
+        out = sorted({(min(p), max(p)) for p in out + carried})
+    rows = np.array(out, dtype=np.int64).reshape(-1, 2)
+    handles = np.array([[bodies.handle[r] for r in p] for p in out], dtype=np.int64).reshape(-1, 2)
+    cache[name] = (rows, handles)
+    return rows
+
+
+def collide_reference(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[Any], settings: Any,
+                      caches: dict[str, Any], dt: float) -> tuple[ContactSet, IntArray, IntArray]:
+    """Contact manifolds of the candidate pairs (P, 2), pair by pair (returns as narrowphase.collide).
+
+    Returns the ContactSet (rows in pair order, ``manifold`` numbering the pairs with points), the
+    touching non-sensor pairs (T, 2) and the overlapping sensor pairs (S, 2).
+    """
+    from .narrowphase import ShapeStore
+
+    n = alg.n
+    cache = caches.setdefault("narrowphase", {})
+    store = ShapeStore(shapes, cache)
+    pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+    colliders: dict[int, list[_Collider]] = {}
+    touching: list[tuple[int, int]] = []
+    sensing: list[tuple[int, int]] = []
+    rows: list[tuple[int, int, _Point, int]] = []  # (a, b, point, manifold)
+    manifold = 0
+    for a, b in pairs.tolist():
+        margin = _pair_margin(bodies, a, b, settings, dt)
+        for r in (a, b):
+            if r not in colliders:
+                colliders[r] = _colliders_of_body(bodies, store, r)
+        pts: list[_Point] = []
+        for ca in colliders[a]:  # the product of the two bodies' colliders, row-major
+            for cb in colliders[b]:
+                for p in _collide_pair(alg, ca, cb, margin, store):
+                    pts.append(p._replace(feature=_mix_pieces(p.feature, ca.piece, cb.piece)))
+        sensor = bool(bodies.sensor[a]) or bool(bodies.sensor[b])
+        if pts and max(p.depth for p in pts) >= 0.0:
+            (sensing if sensor else touching).append((a, b))
+        if pts and not sensor:
+            rows += [(a, b, p, manifold) for p in pts]
+            manifold += 1
+    touching_rows = _carry_inert(bodies, cache, "touching", touching)
+    sensor_rows = _carry_inert(bodies, cache, "sensor_touching", sensing)
+    if not rows:
+        return ContactSet.empty(n), touching_rows, sensor_rows
+    h = bodies.handle
+    contacts = ContactSet(
+        body_a=np.array([r[0] for r in rows], dtype=np.int64),
+        body_b=np.array([r[1] for r in rows], dtype=np.int64),
+        normal=np.array([r[2].normal for r in rows]).reshape(-1, n),
+        point=np.array([r[2].point for r in rows]).reshape(-1, n),
+        depth=np.array([r[2].depth for r in rows], dtype=np.float64),
+        feature=np.array([r[2].feature for r in rows], dtype=np.int64),
+        manifold=np.array([r[3] for r in rows], dtype=np.int64),
+        key=np.array([_contact_key(int(h[r[0]]), int(h[r[1]]), r[2].feature) for r in rows], dtype=np.int64),
+        # materials: geometric mean of the frictions, the larger restitution (common practice)
+        friction=np.array([np.sqrt(bodies.friction[r[0]] * bodies.friction[r[1]]) for r in rows]),
+        restitution=np.array([max(bodies.restitution[r[0]], bodies.restitution[r[1]]) for r in rows]))
+    return contacts, touching_rows, sensor_rows
+
+
+# =============================================================================================
+# solver (core/solver.py): contact by contact
+# =============================================================================================
+
+# the same constants as the vectorised solver (a tangent impulse clamped by less than this relative
+# amount still sticks; stiffness capped at this fraction of the step rate; warm-start match radius)
+_STICK_TOL = 1e-9
+_HERTZ_CAP = 0.5
+_MATCH_DISTANCE = 0.02
+
+
+def _tangent_basis(d: Array) -> Array:
+    """Orthonormal basis (n-1, n) of the complement of a unit normal d (n,): the rows other than
+    row j of the Householder reflection H = I - 2 v v^T / (v . v), v = d - s e_j (j: the largest
+    component of d, s its sign), which maps d to s e_j."""
+    n = d.shape[0]
+    j = int(np.argmax(np.abs(d)))
+    s = 1.0 if d[j] >= 0.0 else -1.0
+    v = d.copy()
+    v[j] -= s
+    vv = float(v @ v)
+    coef = 2.0 / vv if vv > 1e-300 else 0.0  # v = 0 only when d = s e_j: then H = I is right
+    H = np.eye(n) - coef * np.outer(v, v)
+    return np.delete(H, j, axis=0)
+
+
+def _wedge(alg: Algebra, r: Array, u: Array) -> Array:
+    """Bivector (k,) r ^ u: component (i, j) is r_i u_j - r_j u_i."""
+    return np.array([r[i] * u[j] - r[j] * u[i] for i, j in alg.pairs])
+
+
+def _soft(hertz: float, zeta: float, dt: float) -> tuple[float, float, float]:
+    """Bias rate, mass scale and impulse scale of a soft constraint (Catto, "Soft Constraints")."""
+    w = 2.0 * np.pi * hertz
+    a = dt * w * (2.0 * zeta + dt * w)
+    return w / (2.0 * zeta + dt * w), a / (1.0 + a), 1.0 / (1.0 + a)
+
+
+def _colour(item_a: list[int], item_b: list[int], slot_a: list[bool], slot_b: list[bool],
+            priority: list[int]) -> list[int]:
+    """Greedy colouring of items touching bodies a and b: no body with a slot twice in a colour.
+
+    Each colour is built by rounds of Luby's rule: a candidate joins when its priority is the
+    largest among the remaining candidates on each of its slotted bodies; candidates that share a
+    body with a new member drop out of this colour. Items left over start the next colour.
+    """
+    colour = [-1] * len(item_a)
+    remaining = list(range(len(item_a)))
+    c = 0
+    while remaining:
+        used: set[int] = set()
+        cand = remaining
+        while cand:
+            best: dict[int, int] = {}
+            for i in cand:
+                for body, slot in ((item_a[i], slot_a[i]), (item_b[i], slot_b[i])):
+                    if slot:
+                        best[body] = max(best.get(body, -1), priority[i])
+            win = [i for i in cand if (not slot_a[i] or best[item_a[i]] == priority[i])
+                   and (not slot_b[i] or best[item_b[i]] == priority[i])]
+            for i in win:
+                colour[i] = c
+                if slot_a[i]:
+                    used.add(item_a[i])
+                if slot_b[i]:
+                    used.add(item_b[i])
+            cand = [i for i in cand if colour[i] != c and not (slot_a[i] and item_a[i] in used)
+                    and not (slot_b[i] and item_b[i] in used)]
+        remaining = [i for i in remaining if colour[i] < 0]
+        c += 1
+    return colour
+
+
+def _ranks(values: list[int]) -> list[int]:
+    """Distinct priorities: the rank of each value in a stable sort."""
+    r = [0] * len(values)
+    for rank, i in enumerate(sorted(range(len(values)), key=lambda i: values[i])):
+        r[i] = rank
+    return r
+
+
+def _row_colours(batching: str, a: list[int], b: list[int], sa: list[bool], sb: list[bool], key: list[int],
+                 man: list[int]) -> list[int]:
+    """Batch of every row: one batch ("jacobi"), coloured points, or coloured manifolds."""
+    M = len(a)
+    if batching == "jacobi":
+        return [0] * M
+    if batching == "point":
+        return _colour(a, b, sa, sb, _ranks(key))
+    ids = sorted(set(man))
+    first = {m: min(i for i in range(M) if man[i] == m) for m in ids}
+    mkey = [max(key[i] for i in range(M) if man[i] == m) for m in ids]
+    f = [first[m] for m in ids]
+    col = _colour([a[i] for i in f], [b[i] for i in f], [sa[i] for i in f], [sb[i] for i in f], _ranks(mkey))
+    by_id = dict(zip(ids, col, strict=True))
+    return [by_id[man[i]] for i in range(M)]
+
+
+class _Row:
+    """The prepared data of one contact row (directions, Jacobians, masses, bias)."""
+
+    def __init__(self, **values: Any) -> None:
+        self.__dict__.update(values)
+
+
+def _warm_start_values(contacts: ContactSet, pair: list[int], old: dict[str, Any], warm: bool
+                       ) -> tuple[list[float], list[Array], list[bool]]:
+    """Last step's normal impulse, world tangent impulse and sliding flag of every row: by key, or
+    else from the nearest last-step row of the same body pair within the match distance."""
+    M, n = contacts.count, contacts.normal.shape[1]
+    lam_n = [0.0] * M
+    lam_t = [np.zeros(n) for _ in range(M)]
+    sliding = [False] * M
+    okeys = old["key"].tolist()
+    if not okeys:
+        return lam_n, lam_t, sliding
+    by_key: dict[int, int] = {}
+    for j, k in enumerate(okeys):
+        by_key.setdefault(k, j)  # the first of equal keys, as searchsorted finds it
+    by_pair: dict[int, list[int]] = {}
+    for j in old["by_pair"].tolist() if "by_pair" in old else []:
+        by_pair.setdefault(int(old["pair"][j]), []).append(j)
+    for i in range(M):
+        src = by_key.get(int(contacts.key[i]), -1)
+        if src < 0:
+            best, best_d2 = -1, np.inf
+            for j in by_pair.get(pair[i], []):
+                d2 = float(np.sum((old["point"][j] - contacts.point[i]) ** 2))
+                if d2 < best_d2:
+                    best, best_d2 = j, d2
+            if best >= 0 and best_d2 <= _MATCH_DISTANCE ** 2:
+                src = best
+        if src < 0:
+            continue
+        sliding[i] = bool(old["sliding"][src])
+        if warm:
+            lam_n[i] = float(old["normal"][src])
+            t = old["tangent"][src]
+            dn = contacts.normal[i]
+            lam_t[i] = t - float(t @ dn) * dn  # re-projected onto the new tangent plane
+    return lam_n, lam_t, sliding
+
+
+def solve_contacts_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float,
+                             settings: Any, caches: dict[str, Any]) -> None:
+    """Resolve one step's contact rows contact by contact (arguments as in solver.solve_contacts).
+
+    Updates the velocities of awake dynamic bodies (and pushes their poses) in place and keeps the
+    accumulated impulses in ``caches["solver"]`` in the vectorised solver's layout, so either
+    solver can warm-start from the other.
+    """
+    n = alg.n
+    if contacts is None or contacts.count == 0:
+        z = np.zeros(0, np.int64)
+        caches["solver"] = {"key": z, "normal": np.zeros(0), "tangent": np.zeros((0, n)),
+                            "sliding": np.zeros(0, bool), "pair": z.copy(), "point": np.zeros((0, n)),
+                            "by_pair": z.copy()}
+        return
+    from .sleep import wake_touched
+
+    wake_touched(bodies, contacts, caches)  # a sleeping body hit by an awake one joins this solve
+    M = contacts.count
+    dyn = [bool(bodies.kind[i] == DYNAMIC and bodies.awake[i]) for i in range(bodies.count)]
+    h = bodies.handle
+    pair = [(int(h[contacts.body_a[i]]) << 32) | int(h[contacts.body_b[i]]) for i in range(M)]
+    old = caches.get("solver") or {"key": np.zeros(0, np.int64)}
+    lam_n, lam_t, sliding = _warm_start_values(contacts, pair, old, bool(settings.warm_start))
+    active = [i for i in range(M) if dyn[contacts.body_a[i]] or dyn[contacts.body_b[i]]]
+    if active:
+        _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings)
+    order = sorted(range(M), key=lambda i: int(contacts.key[i]))
+    pair_sorted = [pair[i] for i in order]
+    caches["solver"] = {
+        "key": contacts.key[order].copy(), "normal": np.array([lam_n[i] for i in order]),
+        "tangent": np.array([lam_t[i] for i in order]).reshape(M, n),
+        "sliding": np.array([sliding[i] for i in order], dtype=bool),
+        "pair": np.array(pair_sorted, dtype=np.int64), "point": contacts.point[order].copy(),
+        "by_pair": np.array(sorted(range(M), key=lambda j: pair_sorted[j]), dtype=np.int64)}
+
+
+def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], dyn: list[bool],
+                lam_n: list[float], lam_t_world: list[Array], sliding: list[bool], dt: float,
+                settings: Any) -> None:
+    """Solve the active rows; writes their impulses and sliding flags into the given lists."""
+    n, k = alg.n, alg.k
+    w = n + k
+    batching = getattr(settings, "solver_batching", "manifold")
+    a_of = [int(c.body_a[i]) for i in active]
+    b_of = [int(c.body_b[i]) for i in active]
+    colour = _row_colours(batching, a_of, b_of, [dyn[x] for x in a_of], [dyn[x] for x in b_of],
+                          [int(c.key[i]) for i in active], [int(c.manifold[i]) for i in active])
+    # rows in (colour, manifold, row) order; each colour is one batch
+    order = sorted(range(len(active)), key=lambda q: (colour[q], int(c.manifold[active[q]])))
+    rows = [active[q] for q in order]
+    row_colour = [colour[q] for q in order]
+    # mass splitting: a row sees each of its bodies with 1/s of its mass, s the number of rows of
+    # the same batch on that body
+    share: dict[tuple[int, int], int] = {}
+    for i, col in zip(rows, row_colour, strict=True):
+        for body in (int(c.body_a[i]), int(c.body_b[i])):
+            if dyn[body]:
+                share[(col, body)] = share.get((col, body), 0) + 1
+
+    # per-body state X = [v, B], inverse mass and world inverse inertia (zero unless dynamic and awake)
+    X = np.concatenate([bodies.velocity, bodies.angular_velocity], axis=1).copy()
+    inv_m: dict[int, float] = {}
+    inv_I: dict[int, Array] = {}
+    com: dict[int, Array] = {}
+    for i in rows:
+        for body in (int(c.body_a[i]), int(c.body_b[i])):
+            if body in com:
+                continue
+            com[body] = bodies.position[body] + bodies.rotation[body] @ bodies.local_centroid[body]
+            if dyn[body]:
+                C2 = alg.rotor_to_compound(alg.rotor_mul(bodies.rotor[body], bodies.principal_rotor[body]))
+                inv_m[body] = float(bodies.inv_mass[body])
+                inv_I[body] = (C2 * bodies.inv_inertia[body][None, :]) @ C2.T
+            else:
+                inv_m[body] = 0.0
+                inv_I[body] = np.zeros((k, k))
+
+    hertz = min(float(settings.contact_hertz), _HERTZ_CAP / dt)
+    rate, mscale, iscale = _soft(hertz, float(settings.contact_damping_ratio), dt)
+    prepared: list[_Row] = []
+    for i, col in zip(rows, row_colour, strict=True):
+        a, b = int(c.body_a[i]), int(c.body_b[i])
+        d = c.normal[i]
+        D = np.vstack([d, _tangent_basis(d)])  # (n, n): the normal, then the tangents
+        rA, rB = c.point[i] - com[a], c.point[i] - com[b]
+        JA = np.array([_wedge(alg, rA, u) for u in D])  # (n, k): angular Jacobian r ^ u per direction
+        JB = np.array([_wedge(alg, rB, u) for u in D])
+        # Jacobian G (n, 2w): speeds along the directions = G [X_A, X_B]; response H (n, 2w): the
+        # change of [X_A, X_B] per unit impulse along each direction (true masses)
+        G = np.hstack([-D, -JA, D, JB])
+        H = np.hstack([-inv_m[a] * D, -(JA @ inv_I[a].T), inv_m[b] * D, JB @ inv_I[b].T])
+        KA = G[:, :w] @ H[:, :w].T
+        KB = G[:, w:] @ H[:, w:].T
+        s_a = float(share[(col, a)]) if dyn[a] else 1.0
+        s_b = float(share[(col, b)]) if dyn[b] else 1.0
+        K = s_a * KA + s_b * KB  # effective-mass matrix with the split masses
+        mass_n = 1.0 / K[0, 0]
+        # keep the spring at the row's true stiffness although its bodies are split
+        unsplit = (KA[0, 0] + KB[0, 0]) * mass_n
+        mu_k = float(c.friction[i])
+        mu_s = float(np.sqrt(bodies.static_friction[a] * bodies.static_friction[b]))
+        sep = -float(c.depth[i])
+        spec = sep > 0.0
+        push = max(rate * min(sep + settings.linear_slop, 0.0), -settings.max_push_speed)
+        X_ab = np.concatenate([X[a], X[b]])
+        prepared.append(_Row(
+            i=i, a=a, b=b, colour=col, manifold=int(c.manifold[i]), D=D, G=G, H=H, K01=K[0, 1:].copy(),
+            Kt_inv=np.linalg.inv(K[1:, 1:]), mass_n=mass_n,
+            mu=mu_k if sliding[i] else max(mu_s, mu_k),
+            # speculative rows are rigid and allow closing at gap/dt in every pass; touching rows
+            # push overlap beyond the slop out softly in the biased passes only
+            bias_on=sep / dt if spec else push, bias_off=sep / dt if spec else 0.0,
+            keep_on=1.0 - (0.0 if spec else iscale * unsplit), gain_on=mass_n * (1.0 if spec else mscale),
+            e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
+            lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], clamped=False))
+
+    # warm start: apply last step's accumulated impulses once
+    for r in prepared:
+        X[r.a] += np.concatenate([[r.lam_n], r.lam_t]) @ r.H[:, :w]
+    for r in prepared:
+        X[r.b] += np.concatenate([[r.lam_n], r.lam_t]) @ r.H[:, w:]
+
+    # batches and, inside each, the segments whose changes are summed (a manifold, or one row)
+    batches: list[list[list[_Row]]] = []
+    for r in prepared:
+        if not batches or batches[-1][-1][0].colour != r.colour:
+            batches.append([[r]])
+        elif batching == "point" or batches[-1][-1][-1].manifold != r.manifold:
+            batches[-1].append([r])
+        else:
+            batches[-1][-1].append(r)
+
+    def row_update(r: _Row, V: Array, bias: float, keep: float, gain: float, track: bool) -> Array:
+        """One row's friction and normal impulse updates from its speeds V (n,); returns dlambda (n,)."""
+        # friction: one vector impulse in the tangent space, clamped onto the ball mu lambda_n
+        new_t = r.lam_t - r.Kt_inv @ V[1:]
+        radius = r.mu * r.lam_n
+        norm = float(np.sqrt(new_t @ new_t))
+        over = norm > radius * (1.0 + _STICK_TOL)
+        if over:
+            new_t = new_t * (radius / norm)
+        dl_t = new_t - r.lam_t
+        r.lam_t = new_t
+        if track:
+            r.clamped = over and radius > 0.0
+        # normal: its speed after the friction impulse; the accumulated impulse stays >= 0
+        vn = V[0] + float(r.K01 @ dl_t)
+        new_n = max(keep * r.lam_n - gain * (vn + bias), 0.0)
+        dl_n = new_n - r.lam_n
+        r.lam_n = new_n
+        r.max_n = max(r.max_n, new_n)
+        return np.concatenate([[dl_n], dl_t])
+
+    def sweep(biased: bool, track: bool) -> None:
+        """One Gauss-Seidel pass over the batches; inside a batch every row reads the velocities of
+        the batch start and the changes of a segment are summed before they are added."""
+        for batch in batches:
+            changes = []
+            for seg in batch:
+                total = np.zeros(2 * w)
+                for r in seg:
+                    V = r.G @ np.concatenate([X[r.a], X[r.b]])
+                    if biased:
+                        dl = row_update(r, V, r.bias_on, r.keep_on, r.gain_on, track)
+                    else:
+                        dl = row_update(r, V, r.bias_off, 1.0, r.mass_n, track)
+                    total = total + dl @ r.H
+                changes.append((seg[0].a, seg[0].b, total))
+            for a, b, total in changes:
+                X[a] += total[:w]
+                X[b] += total[w:]
+
+    iters = int(settings.velocity_iterations)
+    relax = int(settings.relax_iterations)
+    for it in range(iters):
+        sweep(True, track=relax == 0 and it == iters - 1)
+    X_biased = X.copy()
+    for it in range(relax):
+        sweep(False, track=it == relax - 1)
+
+    # restitution: rows that approached faster than the threshold and took an impulse bounce
+    thr = float(settings.restitution_threshold)
+    for batch in batches:
+        changes = []
+        for seg in batch:
+            total = np.zeros(2 * w)
+            for r in seg:
+                if r.e > 0.0 and r.vn0 < -thr and r.max_n > 0.0:
+                    vn = float(r.G[0] @ np.concatenate([X[r.a], X[r.b]]))
+                    new_n = max(r.lam_n - r.mass_n * (vn + r.e * r.vn0), 0.0)
+                    total = total + (new_n - r.lam_n) * r.H[0]
+                    r.lam_n = new_n
+            changes.append((seg[0].a, seg[0].b, total))
+        for a, b, total in changes:
+            X[a] += total[:w]
+            X[b] += total[w:]
+
+    # velocities back; the push moves positions by dt x (biased - relaxed velocity)
+    for body in range(bodies.count):
+        if not dyn[body]:
+            continue
+        bodies.velocity[body] = X[body, :n]
+        bodies.angular_velocity[body] = X[body, n:]
+        dX = dt * (X_biased[body] - X[body])
+        if np.any(dX != 0.0):
+            _push_pose(alg, bodies, body, dX)
+    for r in prepared:
+        lam_n[r.i] = r.lam_n
+        lam_t_world[r.i] = r.D[1:].T @ r.lam_t
+        sliding[r.i] = r.clamped
+
+
+def _push_pose(alg: Algebra, bodies: Bodies, i: int, dX: Array) -> None:
+    """Move body i by [dx, dB] (n + k,): centre of mass by dx, rotor by exp(-dB/2)."""
+    n = alg.n
+    c_local = bodies.local_centroid[i]
+    com = bodies.position[i] + bodies.rotation[i] @ c_local + dX[:n]
+    R = alg.rotor_normalize(alg.rotor_mul(alg.rotor(dX[n:]), bodies.rotor[i]), steps=1)
+    M = alg.rotor_to_matrix(R)
+    bodies.rotor[i] = R
+    bodies.rotation[i] = M
+    bodies.position[i] = com - M @ c_local
+
+
+# =============================================================================================
+# the stages
+# =============================================================================================
+
+
+def _stage_integrate_velocities(sim: Any, dt: float) -> None:
+    integrate_velocities_reference(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+
+
+def _stage_update_pairs(sim: Any, dt: float) -> None:
+    sim.pairs = update_pairs_reference(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+
+
+def _stage_collide(sim: Any, dt: float) -> None:
+    from .pipeline import _update_events
+
+    contacts, touching, sensors = collide_reference(sim.alg, sim.bodies, sim.pairs, sim.info.shapes,
+                                                    sim.settings, sim.caches, dt)
+    sim.contacts = contacts
+    _update_events(sim, touching, sensors)
+
+
+def _stage_solve(sim: Any, dt: float) -> None:
+    solve_contacts_reference(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+
+
+def _stage_integrate_positions(sim: Any, dt: float) -> None:
+    integrate_positions_reference(sim.alg, sim.bodies, dt)
+
+
+_REFERENCE_STAGES = {
+    "integrate_velocities": _stage_integrate_velocities,
+    "update_pairs": _stage_update_pairs,
+    "collide": _stage_collide,
+    "solve_contacts": _stage_solve,
+    "integrate_positions": _stage_integrate_positions,
+}
+
+
+def use_reference_stages(sim: Any) -> None:
+    """Replace a Simulation's integrate, broadphase, narrowphase and solver stages by the scalar
+    reference versions, in place (stage names and order unchanged; other stages are kept).
+
+    Raises:
+        InputTypeError: ``sim`` is not a Simulation (it has no ``stages`` list).
+    """
+    stages = getattr(sim, "stages", None)
+    if not isinstance(stages, list):
+        raise InputTypeError(f"sim: expected a Simulation (with a list of stages), got {type(sim).__name__}")
+    sim.stages = [(name, _REFERENCE_STAGES.get(name, fn)) for name, fn in stages]
