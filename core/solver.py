@@ -36,9 +36,12 @@ Coherence", GDC 2005; "Soft Constraints", GDC 2011; the soft-step ordering of hi
 Friction is one vector impulse per point in the tangent space, solved with its own
 (n-1) x (n-1) effective-mass block and then scaled back onto the ball ``|lambda_t| <= mu
 lambda_n`` (an isotropic cone; clamping each tangent direction apart would give a pyramid with a
-directional bias). Static and kinetic friction: a point that ended the last step sticking (its
-tangent impulse inside the cone) uses the static coefficient, one that slid (clamped) uses the
-kinetic one; a new point starts static. The kinetic coefficient is ``contacts.friction`` (geometric
+directional bias). Static and kinetic friction: a point that ended the last step sticking (no
+slip left after the solve) uses the static coefficient, one that still slipped uses the kinetic
+one; a new point starts static; the sliding state is decided per manifold (every point on its
+cone and a slip above 1 cm/s left after the solve). A sliding point
+whose block impulse leaves the ball gets it on the ball's rim opposite to its slip (kinetic
+friction opposes the slip). The kinetic coefficient is ``contacts.friction`` (geometric
 mean of the bodies' ``friction``), the static one the geometric mean of their ``static_friction``
 (common practice for both).
 
@@ -86,6 +89,8 @@ DEFAULT_BATCHING = "point"
 
 # a tangent impulse clamped by less than this relative amount still counts as sticking
 _STICK_TOL = 1e-9
+# a point that still slips faster than this after the solve counts as sliding, m/s
+_SLIP_SPEED = 1e-2
 # contact stiffness is capped at this fraction of the step rate (a stiffer spring than the step
 # can resolve only rings)
 HERTZ_CAP = 0.5
@@ -417,7 +422,11 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     np.add.at(X, b, np.einsum("md,mdj->mj", lam_all, HB))
 
     max_n = lam_n.copy()
-    clamped = np.zeros(lam_n.shape[0], dtype=bool)
+    # dense manifold ids of the rows (for the per-manifold sliding decision below)
+    _, man_id = np.unique(man, return_inverse=True)
+    man_id = man_id.reshape(-1)
+    n_man = int(man_id.max()) + 1
+    slides = sliding[perm]
     # per-batch arrays, the two bodies side by side: G, H (m, n, 2(n+k)) act on the pair state
     # [X_A, X_B] (m, 2(n+k)), gathered in one indexing op; K01 (m, n-1) couples a tangent impulse
     # into the normal speed of the same row (with the split masses of the row's body copies)
@@ -425,46 +434,66 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     H = np.concatenate([HA, HB], axis=2)
     K01 = K[:, 0, 1:]
     ab = np.stack([a, b], axis=1)
-    views = [(s, sc, ab[s], G[s], H[s], K01[s], Kt_inv[s], mu[s])
+    views = [(s, sc, ab[s], G[s], H[s], K01[s], Kt_inv[s], mu[s], slides[s])
              for s, sc in zip(slices, scatters, strict=True)]
     w = n + k
 
-    def sweep(bias: Array, keep: Array, gain: Array, track: bool) -> None:
+    def sweep(bias: Array, keep: Array, gain: Array) -> None:
         """One Gauss-Seidel pass over the batches: new lambda_n = max(keep lambda_n - gain (v_n +
         bias), 0), where keep = 1 - impulse scale and gain = mass scale x normal mass."""
-        for (s, sc, iab, g, hh, k01, kti, mus) in views:
+        for (s, sc, iab, g, hh, k01, kti, mus, sl) in views:
             Xab0 = X[iab].reshape(-1, 2 * w)
             V = np.einsum("mdj,mj->md", g, Xab0)  # speeds along normal and tangents
-            # friction: one vector impulse in the tangent space, clamped onto the cone's ball
-            old_t = lam_t[s]
-            new_t = old_t - np.einsum("mde,me->md", kti, V[:, 1:])
-            radius = mus * lam_n[s]
-            norm = np.sqrt(np.einsum("md,md->m", new_t, new_t))
-            over = norm > radius * (1.0 + _STICK_TOL)
-            new_t *= np.where(over, radius / np.where(over, norm, 1.0), 1.0)[:, None]
-            dl = np.empty((new_t.shape[0], n))
-            dl[:, 1:] = new_t - old_t
-            lam_t[s] = new_t
-            if track:
-                clamped[s] = over & (radius > 0.0)
-            # normal: its speed after the friction impulse, accumulated impulse clamped at zero
-            vn = V[:, 0] + np.einsum("md,md->m", k01, dl[:, 1:])
+            dl = np.empty((V.shape[0], n))
+            # normal first (friction then sees this iteration's load): accumulated impulse
+            # clamped at zero
             old_n = lam_n[s]  # a view: the deltas are taken before lam_n is written
-            new_n = np.maximum(keep[s] * old_n - gain[s] * (vn + bias[s]), 0.0)
+            new_n = np.maximum(keep[s] * old_n - gain[s] * (V[:, 0] + bias[s]), 0.0)
             dl[:, 0] = new_n - old_n
             lam_n[s] = new_n
             np.maximum(max_n[s], new_n, out=max_n[s])
+            # friction: one vector impulse in the tangent space, with the tangent speeds after
+            # the normal impulse (K is symmetric: K[1:, 0] = K01), clamped onto the cone's ball
+            vt = V[:, 1:] + k01 * dl[:, :1]
+            old_t = lam_t[s]
+            new_t = old_t - np.einsum("mde,me->md", kti, vt)
+            radius = mus * new_n
+            norm = np.sqrt(np.einsum("md,md->m", new_t, new_t))
+            over = norm > radius * (1.0 + _STICK_TOL)
+            # a sliding point (kinetic, from the last step) beyond the cone gets its impulse on the
+            # ball's rim opposite to its slip: kinetic friction opposes the slip, and the block
+            # solve's direction is skewed by the anisotropic effective mass (measured: 6% too
+            # little friction on a sliding 3-D box). A sticking point is scaled back onto the ball
+            # (following the slip there made a box that static friction holds jitter and creep).
+            vnorm = np.sqrt(np.einsum("md,md->m", vt, vt))
+            follow = over & sl & (vnorm > 1e-9)
+            new_t *= np.where(over, radius / np.where(over, norm, 1.0), 1.0)[:, None]
+            new_t = np.where(follow[:, None], -(radius / np.where(follow, vnorm, 1.0))[:, None] * vt, new_t)
+            dl[:, 1:] = new_t - old_t
+            lam_t[s] = new_t
             sc.apply(X, iab, Xab0, np.einsum("md,mdj->mj", dl, hh))
 
     iters = int(settings.velocity_iterations)
     relax = int(settings.relax_iterations)
     keep_on, gain_on = 1.0 - is_on, mass_n * ms_on
-    for it in range(iters):
-        sweep(bias_on, keep_on, gain_on, track=relax == 0 and it == iters - 1)
+    for _ in range(iters):
+        sweep(bias_on, keep_on, gain_on)
     X_biased = X.copy()
-    for it in range(relax):
-        sweep(bias_off, ones, mass_n, track=it == relax - 1)
+    for _ in range(relax):
+        sweep(bias_off, ones, mass_n)
     del zeros
+    # a manifold slides (kinetic friction next step) when its total friction is at its limit and
+    # it still slips after the solve; one that friction stopped, or that is inside the cone,
+    # sticks (static next step). Decided per manifold, not per point: a single point saturating
+    # in an unconverged first step switched a block that static friction holds to kinetic.
+    slip = np.einsum("mdj,mj->md", G[:, 1:], X[ab].reshape(-1, 2 * w))
+    slip2 = np.einsum("md,md->m", slip, slip)
+    max_slip2 = np.zeros(n_man)
+    np.maximum.at(max_slip2, man_id, slip2)
+    total_t = np.bincount(man_id, np.sqrt(np.einsum("md,md->m", lam_t, lam_t)), n_man)
+    limit = np.bincount(man_id, mu * lam_n, n_man)
+    at_limit = total_t >= (1.0 - 1e-3) * limit  # every point of the manifold on its cone
+    sliding_now = (at_limit & (limit > 0.0) & (max_slip2 > _SLIP_SPEED ** 2))[man_id]
     # the push: what the bias moved, taken out of the velocities by the relax pass
     moved = np.nonzero(dyn)[0]
     push_dX = dt * (X_biased[moved] - X[moved])
@@ -494,7 +523,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     inv_perm[perm] = np.arange(perm.size)
     lam_t_w = np.einsum("md,mdi->mi", lam_t, D[:, 1:])
     del k
-    return lam_n[inv_perm], lam_t_w[inv_perm], clamped[inv_perm]
+    return lam_n[inv_perm], lam_t_w[inv_perm], sliding_now[inv_perm]
 
 
 class _Scatter:
