@@ -878,9 +878,11 @@ def collide_reference(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: lis
 # solver (core/solver.py): contact by contact
 # =============================================================================================
 
-# the same constants as the vectorised solver (a tangent impulse clamped by less than this relative
-# amount still sticks; stiffness capped at this fraction of the step rate; warm-start match radius)
+# the same constants as the vectorised solver: a tangent impulse beyond the ball by less than this
+# relative amount is on it; a manifold slipping slower than this (m/s) after the solve sticks;
+# stiffness capped at this fraction of the step rate; warm-start match radius (m)
 _STICK_TOL = 1e-9
+_SLIP_SPEED = 1e-3
 _HERTZ_CAP = 0.5
 _MATCH_DISTANCE = 0.02
 
@@ -1060,7 +1062,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     """Solve the active rows; writes their impulses and sliding flags into the given lists."""
     n, k = alg.n, alg.k
     w = n + k
-    batching = getattr(settings, "solver_batching", "manifold")
+    batching = getattr(settings, "solver_batching", "point")
     a_of = [int(c.body_a[i]) for i in active]
     b_of = [int(c.body_b[i]) for i in active]
     colour = _row_colours(batching, a_of, b_of, [dyn[x] for x in a_of], [dyn[x] for x in b_of],
@@ -1121,6 +1123,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         mu_s = float(np.sqrt(bodies.static_friction[a] * bodies.static_friction[b]))
         sep = -float(c.depth[i])
         spec = sep > 0.0
+        soft = float(c.depth[i]) > 0.0
         push = max(rate * min(sep + settings.linear_slop, 0.0), -settings.max_push_speed)
         X_ab = np.concatenate([X[a], X[b]])
         prepared.append(_Row(
@@ -1130,9 +1133,11 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             # speculative rows are rigid and allow closing at gap/dt in every pass; touching rows
             # push overlap beyond the slop out softly in the biased passes only
             bias_on=sep / dt if spec else push, bias_off=sep / dt if spec else 0.0,
-            keep_on=1.0 - (0.0 if spec else iscale * unsplit), gain_on=mass_n * (1.0 if spec else mscale),
+            # overlapping rows are soft in the biased passes; exactly touching rows stay rigid
+            keep_on=1.0 - (iscale * unsplit if soft else 0.0), gain_on=mass_n * (mscale if soft else 1.0),
             e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
-            lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], clamped=False))
+            lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], sliding=sliding[i],
+            slides_now=False))
 
     # warm start: apply last step's accumulated impulses once
     for r in prepared:
@@ -1150,28 +1155,30 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         else:
             batches[-1][-1].append(r)
 
-    def row_update(r: _Row, V: Array, bias: float, keep: float, gain: float, track: bool) -> Array:
-        """One row's friction and normal impulse updates from its speeds V (n,); returns dlambda (n,)."""
-        # friction: one vector impulse in the tangent space, clamped onto the ball mu lambda_n
-        new_t = r.lam_t - r.Kt_inv @ V[1:]
-        radius = r.mu * r.lam_n
-        norm = float(np.sqrt(new_t @ new_t))
-        over = norm > radius * (1.0 + _STICK_TOL)
-        if over:
-            new_t = new_t * (radius / norm)
-        dl_t = new_t - r.lam_t
-        r.lam_t = new_t
-        if track:
-            r.clamped = over and radius > 0.0
-        # normal: its speed after the friction impulse; the accumulated impulse stays >= 0
-        vn = V[0] + float(r.K01 @ dl_t)
-        new_n = max(keep * r.lam_n - gain * (vn + bias), 0.0)
+    def row_update(r: _Row, V: Array, bias: float, keep: float, gain: float) -> Array:
+        """One row's normal and friction impulse updates from its speeds V (n,); returns dlambda (n,)."""
+        # normal first (friction then sees this iteration's load); the accumulated impulse stays >= 0
+        new_n = max(keep * r.lam_n - gain * (V[0] + bias), 0.0)
         dl_n = new_n - r.lam_n
         r.lam_n = new_n
         r.max_n = max(r.max_n, new_n)
+        # friction: one vector impulse in the tangent space, from the tangent speeds after the
+        # normal impulse (K is symmetric, so K[1:, 0] = K01), kept on the ball mu lambda_n
+        vt = V[1:] + r.K01 * dl_n
+        new_t = r.lam_t - r.Kt_inv @ vt
+        radius = r.mu * new_n
+        norm = float(np.sqrt(new_t @ new_t))
+        if norm > radius * (1.0 + _STICK_TOL):
+            vnorm = float(np.sqrt(vt @ vt))
+            if r.sliding and vnorm > 1e-9:
+                new_t = -(radius / vnorm) * vt  # kinetic friction opposes the slip, on the rim
+            else:
+                new_t = new_t * (radius / norm)  # a sticking point is scaled back onto the ball
+        dl_t = new_t - r.lam_t
+        r.lam_t = new_t
         return np.concatenate([[dl_n], dl_t])
 
-    def sweep(biased: bool, track: bool) -> None:
+    def sweep(biased: bool) -> None:
         """One Gauss-Seidel pass over the batches; inside a batch every row reads the velocities of
         the batch start and the changes of a segment are summed before they are added."""
         for batch in batches:
@@ -1181,22 +1188,36 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
                 for r in seg:
                     V = r.G @ np.concatenate([X[r.a], X[r.b]])
                     if biased:
-                        dl = row_update(r, V, r.bias_on, r.keep_on, r.gain_on, track)
+                        dl = row_update(r, V, r.bias_on, r.keep_on, r.gain_on)
                     else:
-                        dl = row_update(r, V, r.bias_off, 1.0, r.mass_n, track)
+                        dl = row_update(r, V, r.bias_off, 1.0, r.mass_n)
                     total = total + dl @ r.H
                 changes.append((seg[0].a, seg[0].b, total))
             for a, b, total in changes:
                 X[a] += total[:w]
                 X[b] += total[w:]
 
-    iters = int(settings.velocity_iterations)
-    relax = int(settings.relax_iterations)
-    for it in range(iters):
-        sweep(True, track=relax == 0 and it == iters - 1)
+    for _ in range(int(settings.velocity_iterations)):
+        sweep(True)
     X_biased = X.copy()
-    for it in range(relax):
-        sweep(False, track=it == relax - 1)
+    for _ in range(int(settings.relax_iterations)):
+        sweep(False)
+
+    # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
+    # is at the sum of their limits and some point still slips faster than the slip speed;
+    # otherwise all its points stick (static next step)
+    per_manifold: dict[int, list[float]] = {}  # manifold -> [max slip^2, total |lam_t|, limit]
+    for r in prepared:
+        slip = r.G[1:] @ np.concatenate([X[r.a], X[r.b]])
+        acc = per_manifold.setdefault(r.manifold, [0.0, 0.0, 0.0])
+        acc[0] = max(acc[0], float(slip @ slip))
+        acc[1] += float(np.sqrt(r.lam_t @ r.lam_t))
+        acc[2] += r.mu * r.lam_n
+    for r in prepared:
+        max_slip2, total_t, limit = per_manifold[r.manifold]
+        r.slides_now = total_t >= (1.0 - 1e-3) * limit and limit > 0.0 and max_slip2 > _SLIP_SPEED ** 2
+
+    X_relaxed = X.copy()  # the push is what the relax passes took out, measured before restitution
 
     # restitution: rows that approached faster than the threshold and took an impulse bounce
     thr = float(settings.restitution_threshold)
@@ -1221,13 +1242,13 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             continue
         bodies.velocity[body] = X[body, :n]
         bodies.angular_velocity[body] = X[body, n:]
-        dX = dt * (X_biased[body] - X[body])
+        dX = dt * (X_biased[body] - X_relaxed[body])
         if np.any(dX != 0.0):
             _push_pose(alg, bodies, body, dX)
     for r in prepared:
         lam_n[r.i] = r.lam_n
         lam_t_world[r.i] = r.D[1:].T @ r.lam_t
-        sliding[r.i] = r.clamped
+        sliding[r.i] = r.slides_now
 
 
 def _push_pose(alg: Algebra, bodies: Bodies, i: int, dX: Array) -> None:
