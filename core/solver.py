@@ -11,24 +11,28 @@ Coherence", GDC 2005; "Soft Constraints", GDC 2011; the soft-step ordering of hi
    angular velocity by ``I^-1 (r ^ p)``. The n x n effective-mass matrix of a row is
    ``K = (1/m_A + 1/m_B) D D^T + J_A I_A^-1 J_A^T + J_B I_B^-1 J_B^T``; the normal uses the scalar
    ``1 / K_00``, friction the inverse of the (n-1) x (n-1) tangent block.
-2. *Warm start* from last step's accumulated impulses, matched by ``contacts.key`` (the tangent
-   impulse is kept as a world vector and re-projected onto the new tangent plane).
-3. *Solve with bias* (``velocity_iterations``): friction first, then the normal row, per batch.
-   Overlap beyond ``linear_slop`` is pushed out by a soft constraint (bias rate, mass scale and
-   impulse scale from ``contact_hertz``, ``contact_damping_ratio`` and dt), the push speed capped
+2. *Warm start* from last step's accumulated impulses, matched by ``contacts.key``, or for a new
+   key by the nearest old point of the same body pair within 2 cm (the tangent impulse is kept as
+   a world vector and re-projected onto the new tangent plane).
+3. *Solve with bias* (``velocity_iterations``): the normal row, then friction (which then sees
+   this iteration's load), per batch. Overlapping rows are soft (bias rate, mass scale and
+   impulse scale from ``contact_hertz``, capped at half the step rate, ``contact_damping_ratio``
+   and dt); overlap beyond ``linear_slop`` is pushed out at the bias rate, the push speed capped
    at ``max_push_speed``. A speculative row (gap g > 0) is rigid and allows a closing speed of g/dt
    (Firth, "Speculative Contacts", 2011), so a fast body arrives just touching.
 4. *Relax* (``relax_iterations``) without the bias, which takes the push velocity out again.
 5. *Restitution*, one pass: rows whose normal approach speed before the solve exceeded
    ``restitution_threshold`` and that took a normal impulse get a separating speed of e times it.
-   A speculative row that took no impulse (the bodies do not meet within the step) never bounces.
+   A speculative row that took no impulse (the bodies do not meet within the step) never bounces;
+   one that did bounces at its time of impact: the bodies are moved apart by (1 + e) times the
+   gap along the normal, where the bounce leaves them.
 6. *Position push*: positions and rotors are moved by dt times (velocity after step 3 minus the
    velocity after step 4), so that together with ``integrate_positions`` the bodies move with the
    biased velocity, as in the soft step, while the velocities they keep carry no push (the push
    adds no kinetic energy). Our pipeline integrates positions after the solver, so this
-   displacement is applied here. Rows within the slop are rigid in step 3 too, so where nothing
-   overlaps the two velocities agree and nothing is pushed: positions then follow the final
-   velocities exactly, which keeps linear and angular momentum of free collisions conserved.
+   displacement is applied here. Rows that do not overlap are rigid in step 3 too, so where
+   nothing overlaps the two velocities agree and nothing is pushed: positions then follow the
+   final velocities exactly.
    (Rejected: integrating positions with the pre-restitution velocity as the soft step does; in
    our order it displaces bouncing bodies against their final velocity and breaks the
    conservation of angular momentum about the origin in glancing collisions.)
@@ -56,11 +60,13 @@ batches in which no dynamic body appears twice; static, kinematic and sleeping b
 slot. Three batchings are built and compared:
 
 * ``"point"`` (default): colour single points (pure Gauss-Seidel). A 4-D box has 8 points per face,
-  so a stack needs ~20 colours of a few rows each and the fixed cost of a numpy pass dominates
-  (4-D, 800 points: ~0.7 us per point per iteration against ~0.25 us for the others), but it is
-  the only one of the three that holds a stack of ten still: with hand-built exact contacts, after
-  a 1 s settle, the top box of a 4-D stack moved 6 mm in the next 9 s with residual kinetic energy
-  ~1e-3 J, where "manifold" jittered at ~1e3 J and "jacobi" at ~1e4 J.
+  so stacks need ~20 colours of a few rows each and the fixed cost of a numpy pass dominates
+  (4-D, 800 points in 20 colours: ~0.95 us per point per iteration against ~0.29 us for
+  "manifold" in 3 colours and ~0.25 us for "jacobi"), but it is the only one of the three that
+  holds a stack of ten: 4-D, exact face contacts, 10 s after a 1 s settle, the top box drifts
+  1.9 cm with peak kinetic energy 2 J (boxes of 1000 kg), where "manifold" drifts 15 cm at up to
+  7 kJ and "jacobi" collapses; a 4-D pyramid of 55 boxes drifts 1.5 cm (point) against 88 cm
+  (manifold) and collapse (jacobi).
 * ``"manifold"``: colour whole manifolds; the points of one manifold are solved together in one
   batch with mass splitting (Tonge, Benevolenski and Voroshilov, SIGGRAPH 2012: each of the c
   points sees the body with c times its inverse mass, and the impulses are summed). A stack needs
