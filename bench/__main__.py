@@ -39,7 +39,8 @@ def _peak_rss_mb() -> float:
         return float("nan")
 
 
-def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0, reference: bool = False) -> dict[str, Any]:
+def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0,
+              reference: bool = False) -> dict[str, Any]:
     """Build a scene, settle it, time ``steps`` steps; return one JSON-ready record."""
     if scene not in SCENES:
         raise SystemExit(f"scene: expected one of {sorted(SCENES)}, got {scene!r}")
@@ -99,7 +100,8 @@ def _print_table(rows: list[dict[str, Any]]) -> None:
     for r in rows:
         stages = ", ".join(f"{k} {v:.2f}" for k, v in r["stage_ms"].items())
         print(f"{r['scene']:<11}{r['path']:<11}{r['dim']:>4}{r['bodies']:>8}{r['steps']:>6}"
-              f"{r['median_step_ms']:>11.3f}{r['p90_step_ms']:>9.3f}{r['contacts']:>9}{r['max_depth']:>10.4f}  {stages}")
+              f"{r['median_step_ms']:>11.3f}{r['p90_step_ms']:>9.3f}{r['contacts']:>9}"
+              f"{r['max_depth']:>10.4f}  {stages}")
 
 
 def _kernels() -> list[dict[str, Any]]:

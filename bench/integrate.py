@@ -6,14 +6,14 @@ import time
 from typing import Any
 
 import numpy as np
-
 from ndrigid.core import integrate
-from ndrigid.core.components import Bodies
 from ndrigid.core.algebra import Algebra
+from ndrigid.core.components import Bodies
 from ndrigid.core.shapes import Box
 
 
-def run_integrate_bench(bodies: int = 100_000, dims: tuple[int, ...] = (2, 3, 4, 5), steps: int = 5) -> list[dict[str, Any]]:
+def run_integrate_bench(bodies: int = 100_000, dims: tuple[int, ...] = (2, 3, 4, 5),
+                        steps: int = 5) -> list[dict[str, Any]]:
     """Both integrate stages on ``bodies`` free boxes with random spins; best of ``steps`` runs."""
     rows = []
     for n in dims:

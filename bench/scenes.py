@@ -13,10 +13,9 @@ a pile has settled) and then times ``--steps`` steps.
 
 from __future__ import annotations
 
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
-
 from ndrigid.core.shapes import Ball, Box, HalfSpace
 from ndrigid.core.simulation import Settings, Simulation
 
@@ -56,7 +55,7 @@ def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
         pos = np.zeros(dim)
         layer, slot = divmod(i, cells ** (dim - 1))
         idx = np.unravel_index(slot, (cells,) * (dim - 1))
-        for a, j in zip(horiz, idx):
+        for a, j in zip(horiz, idx, strict=False):
             pos[a] = -half_width + 0.1 + (j + 0.5) * size * 1.25 + rng.uniform(-0.05, 0.05)
         pos[1] = 0.5 * size + layer * size * 1.3 + rng.uniform(0, 0.05)
         rot = sim.alg.rotor(rng.normal(size=sim.alg.k) * 0.3)

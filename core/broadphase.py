@@ -111,7 +111,7 @@ def shape_cloud(shape: Any, caches: dict[str, Any] | None = None,
                 pts.append(np.asarray(t)[None, :])
                 rad.append(np.array([piece.radius]))
             else:
-                V = np.asarray(piece.vertices)
+                V = np.asarray(piece.vertices)  # type: ignore[attr-defined]  # convex pieces only
                 pts.append(t + V @ np.asarray(M).T)
                 rad.append(np.zeros(len(V)))
         out = (np.concatenate(pts), np.concatenate(rad))

@@ -14,13 +14,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.integrate import solve_ivp
-
+from conftest import dims
 from ndrigid.core.algebra import Algebra, second_compound, skew, unskew
 from ndrigid.core.shapes import Ball, Box
 from ndrigid.core.simulation import Settings, Simulation
-
-from conftest import dims
+from scipy.integrate import solve_ivp
 
 
 def _free_sim(dim: int, hz: float = 240.0, gyroscopic: str = "implicit", gravity: bool = False) -> Simulation:
@@ -228,7 +226,8 @@ def test_rotor_stays_unit_and_matches_matrix(dim: int, rng: np.random.Generator)
     """After many steps the rotor is still an exact unit rotor and the stored matrix is its
     rotation (orthogonality to 1e-12, a fact of rotation groups)."""
     sim = _free_sim(dim, hz=60.0)
-    h = sim.add_body(Box(np.linspace(0.2, 0.5, dim)), mass=1.0, angular_velocity=rng.normal(size=sim.alg.k) * 4)
+    h = sim.add_body(Box(np.linspace(0.2, 0.5, dim)), mass=1.0,
+                     angular_velocity=rng.normal(size=sim.alg.k) * 4)
     for _ in range(3000):
         sim.step()
     alg = sim.alg

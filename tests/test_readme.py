@@ -38,9 +38,8 @@ def test_readme_names_the_two_setup_commands() -> None:
 def test_readme_mesh_example_runs(tmp_path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
     """The user-mesh example: a closed 4-D boundary (the 24-cell's, written as nOFF) gives the
     mass the hull would have (same solid; scipy ConvexHull volume as the outside reference)."""
-    from scipy.spatial import ConvexHull
-
     from ndrigid.core import Simulation, cell_24, write_noff
+    from scipy.spatial import ConvexHull
 
     poly = cell_24(edge=0.3)
     write_noff(tmp_path / "rock.noff", poly.boundary_mesh())

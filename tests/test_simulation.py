@@ -9,7 +9,6 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from conftest import dims
-
 from ndrigid.core.errors import InputError, InputTypeError
 from ndrigid.core.shapes import Ball, Box, HalfSpace
 from ndrigid.core.simulation import Settings, Simulation
@@ -17,7 +16,8 @@ from ndrigid.core.simulation import Settings, Simulation
 
 def _snapshot(sim: Simulation) -> dict[str, np.ndarray]:
     b = sim.bodies
-    return {name: b.column(name).copy() for name in b.names} | {"handles": sim.handles, "time": np.array(sim.time)}
+    cols = {name: b.column(name).copy() for name in b.names}
+    return cols | {"handles": sim.handles, "time": np.array(sim.time)}
 
 
 def _assert_same(a: dict[str, np.ndarray], b: dict[str, np.ndarray]) -> None:
@@ -37,7 +37,8 @@ def _populate(sim: Simulation, rng: np.random.Generator, count: int = 6) -> list
 
 
 @dims()
-def test_add_and_remove_in_any_order_keeps_other_bodies_bit_for_bit(dim: int, rng: np.random.Generator) -> None:
+def test_add_and_remove_in_any_order_keeps_other_bodies_bit_for_bit(dim: int,
+                                                                    rng: np.random.Generator) -> None:
     """Removing bodies in any order leaves every other body's state unchanged, bit for bit, and the
     survivors then evolve like a world created without the removed ones, to rounding (free bodies,
     far apart: no interaction)."""
@@ -51,7 +52,8 @@ def test_add_and_remove_in_any_order_keeps_other_bodies_bit_for_bit(dim: int, rn
             with pytest.raises(InputError, match="handle"):
                 sim.position(h)
             continue
-        for got, want in zip((sim.position(h), sim.rotor(h), sim.velocity(h), sim.angular_velocity(h)), before[h]):
+        now = (sim.position(h), sim.rotor(h), sim.velocity(h), sim.angular_velocity(h))
+        for got, want in zip(now, before[h], strict=True):
             np.testing.assert_array_equal(got, want)
     assert sim.count == 5
     extra = sim.add_body(Ball(dim, 0.3), position=np.full(dim, 40.0))
