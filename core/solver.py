@@ -391,25 +391,27 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     D[:, 0] = d
     D[:, 1:] = tangent_basis(d)
     point = c.point[ridx]
-    JA = _wedge_rows(alg, point - com[a], D)  # (M, n, k)
-    JB = _wedge_rows(alg, point - com[b], D)
-    # I^-1 (r ^ u) as J I^-1 (the inverse inertia is symmetric): one batched matmul per body
-    RA = np.einsum("mij,mdj->mdi", inv_I[a], JA)  # I^-1 (r ^ u), (M, n, k)
-    RB = np.einsum("mij,mdj->mdi", inv_I[b], JB)
     imA, imB = inv_m[a], inv_m[b]
     # Jacobians G (M, n, 2w) on the pair state [X_A, X_B]: speed along each direction = G . X_ab;
     # responses H (M, n, 2w): X_ab += lambda . H per unit impulse (true masses). Written in place
-    # (measured: four concatenations of (M, n, .) pieces cost 40% of the set-up in 2-D)
+    # (measured: four concatenations of (M, n, .) pieces cost 40% of the set-up in 2-D), one body
+    # side at a time so that its angular pieces are freed before the other's are built
     G = np.empty((M, n, 2 * w))
-    G[:, :, :n] = -D
-    G[:, :, n:w] = -JA
-    G[:, :, w:w + n] = D
-    G[:, :, w + n:] = JB
     H = np.empty((M, n, 2 * w))
-    np.multiply(D, -imA[:, None, None], out=H[:, :, :n])
-    np.negative(RA, out=H[:, :, n:w])
-    np.multiply(D, imB[:, None, None], out=H[:, :, w:w + n])
-    H[:, :, w + n:] = RB
+    for body, im, lo, sign in ((a, imA, 0, -1.0), (b, imB, w, 1.0)):
+        J = _wedge_rows(alg, point - com[body], D)  # (M, n, k): angular Jacobians r ^ u
+        R = np.einsum("mij,mdj->mdi", inv_I[body], J)  # I^-1 (r ^ u), (M, n, k)
+        if sign < 0.0:
+            np.negative(D, out=G[:, :, lo:lo + n])
+            np.negative(J, out=G[:, :, lo + n:lo + w])
+            np.multiply(D, -im[:, None, None], out=H[:, :, lo:lo + n])
+            np.negative(R, out=H[:, :, lo + n:lo + w])
+        else:
+            G[:, :, lo:lo + n] = D
+            G[:, :, lo + n:lo + w] = J
+            np.multiply(D, im[:, None, None], out=H[:, :, lo:lo + n])
+            H[:, :, lo + n:lo + w] = R
+        del J, R
     # effective-mass matrix with split masses: K = s_A G_A H_A^T + s_B G_B H_B^T; the linear parts
     # are (1/m) D D^T = (1/m) I_n, since the rows of D are orthonormal
     KA = np.einsum("mij,mlj->mil", G[:, :, :w], H[:, :, :w])
@@ -423,6 +425,10 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     unsplit = unsplit_k * mass_n
     Kt_inv = np.linalg.inv(K[:, 1:, 1:])
     K01 = np.ascontiguousarray(K[:, 0, 1:])
+    # drop the pieces now held in G, H and K before the sweeps: the solve's peak memory is per row
+    # (measured, 4-D pile of 300, peak over the call: 3.7 KB per row, ~40 KB per body, before the
+    # angular pieces and these went early; see the module notes for after)
+    del KA, KB, K
 
     # friction: kinetic from the contact, static from the bodies' static column
     mu_k = c.friction[ridx]
@@ -471,8 +477,12 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     # back through a flat index measured 3-6x faster than indexing X (N, w) with an (m, 2) array
     # (2-D, 1,000 rows: 3.0 us against 18.5 us to gather, 6.4 us against 20 us to write)
     el = (ab[:, :, None] * w + np.arange(w)).reshape(M, 2 * w)
+    # rows that may bounce: restitution, and approaching faster than the threshold before the solve;
+    # only their largest normal impulse is needed (did they meet within the step?)
+    e = c.restitution[ridx]
+    may_bounce = (e > 0.0) & (vn0 < -settings.restitution_threshold)
     batches = [_Batch(batching, s, a, b, man, el, G, H, K01, Kt_inv, mu, slides, lam_n, lam_t, max_n,
-                      bias_on, keep_on, gain_on, bias_off, mass_n) for s in slices]
+                      bias_on, keep_on, gain_on, bias_off, mass_n, may_bounce) for s in slices]
     Xf = X.reshape(-1)  # a view: the batches read and write X through it
 
     iters = int(settings.velocity_iterations)
@@ -499,8 +509,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     push_dX = dt * (X_biased[moved] - X[moved])
 
     # restitution: one pass over the rows that approached fast and met within the step
-    e = c.restitution[ridx]
-    bounce = (e > 0.0) & (vn0 < -settings.restitution_threshold) & (max_n > 0.0)
+    bounce = may_bounce & (max_n > 0.0)
     if np.any(bounce):
         for bt in batches:
             s = bt.s
@@ -560,7 +569,7 @@ class _Batch:
     def __init__(self, batching: str, s: slice, a: IntArray, b: IntArray, man: IntArray, el: IntArray,
                  G: Array, H: Array, K01: Array, Kt_inv: Array, mu: Array, slides: NDArray[np.bool_],
                  lam_n: Array, lam_t: Array, max_n: Array, bias_on: Array, keep_on: Array,
-                 gain_on: Array, bias_off: Array, gain_off: Array) -> None:
+                 gain_on: Array, bias_off: Array, gain_off: Array, may_bounce: NDArray[np.bool_]) -> None:
         self.mode = batching
         self.s = s
         self.el = el[s].reshape(-1)
@@ -573,6 +582,7 @@ class _Batch:
         self.sl = slides[s]
         self.any_sliding = bool(np.any(self.sl))
         self.lam_n, self.lam_t, self.max_n = lam_n[s], lam_t[s], max_n[s]
+        self.track_max = bool(np.any(may_bounce[s]))
         self.bias_on, self.keep_on, self.gain_on = bias_on[s], keep_on[s], gain_on[s]
         # the relaxed pass has keep = 1 and, without speculative rows, no bias at all
         self.bias_off = bias_off[s] if np.any(bias_off[s] != 0.0) else None
@@ -620,7 +630,8 @@ def _sweep(batches: list[_Batch], Xf: Array, X: Array, biased: bool) -> None:
         np.maximum(new_n, 0.0, out=new_n)
         np.subtract(new_n, old_n, out=dl[:, 0])
         old_n[...] = new_n
-        np.maximum(bt.max_n, new_n, out=bt.max_n)
+        if bt.track_max:
+            np.maximum(bt.max_n, new_n, out=bt.max_n)
         # friction: one vector impulse in the tangent space, with the tangent speeds after the
         # normal impulse (K is symmetric: K[1:, 0] = K01), clamped onto the cone's ball
         vt = V[:, 1:]
