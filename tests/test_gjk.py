@@ -35,7 +35,8 @@ def pools() -> dict[int, list[ConvexPolytope]]:
     return out
 
 
-def world(shape: ConvexPolytope, pos: np.ndarray, rot: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def world(shape: ConvexPolytope, pos: np.ndarray, rot: np.ndarray
+          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """World vertices and halfspace system N x <= o."""
     N = shape.facet_normals @ rot.T
     return pos + shape.vertices @ rot.T, N, shape.facet_offsets + N @ pos
@@ -85,7 +86,8 @@ def test_polytope_verdict_depth_and_minimality(dim: int, rng: np.random.Generato
     for r, (Va, Vb) in zip(results, verts, strict=True):
         if not len(r.pair):
             # no contact: then the bodies are apart by more than the margin along some direction
-            sep = np.max(np.maximum((Vb @ W.T).min(0) - (Va @ W.T).max(0), (Va @ W.T).min(0) - (Vb @ W.T).max(0)))
+            sep = np.max(np.maximum((Vb @ W.T).min(0) - (Va @ W.T).max(0),
+                                    (Va @ W.T).min(0) - (Vb @ W.T).max(0)))
             assert sep > -1e-9 or gjk_distance(Va, Vb)[0] > margin
             continue
         u = r.normal[0]
@@ -115,7 +117,8 @@ def test_gjk_distance_matches_slsqp(dim: int, rng: np.random.Generator,
         Va, Na, oa = world(A, pa, Ra)
         Vb, Nb, ob = world(B, pb, Rb)
         dist = gjk_distance(Va, Vb)[0]
-        cons = [{"type": "ineq", "fun": lambda z: oa - Na @ z[:n]}, {"type": "ineq", "fun": lambda z: ob - Nb @ z[n:]}]
+        cons = [{"type": "ineq", "fun": lambda z, N=Na, o=oa: o - N @ z[:n]},
+                {"type": "ineq", "fun": lambda z, N=Nb, o=ob: o - N @ z[n:]}]
         res = minimize(lambda z: np.sum((z[:n] - z[n:]) ** 2), np.concatenate([Va.mean(0), Vb.mean(0)]),
                        constraints=cons, method="SLSQP", options={"ftol": 1e-14, "maxiter": 500})
         assert res.success
@@ -147,8 +150,8 @@ def test_ball_closest_point_matches_slsqp(dim: int, rng: np.random.Generator,
                 assert np.allclose(mp.normal[0], -N[f])
                 assert np.isclose(mp.depth[0], r - s[f])
                 continue
-            res = minimize(lambda x: np.sum((x - c) ** 2), V.mean(0), method="SLSQP",
-                           constraints=[{"type": "ineq", "fun": lambda x: o - N @ x}],
+            res = minimize(lambda x, c=c: np.sum((x - c) ** 2), V.mean(0), method="SLSQP",
+                           constraints=[{"type": "ineq", "fun": lambda x, N=N, o=o: o - N @ x}],
                            options={"ftol": 1e-14, "maxiter": 500})
             q, d = res.x, np.sqrt(res.fun)
             assert np.isclose(mp.depth[0], r - d, atol=1e-6)
