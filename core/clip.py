@@ -19,13 +19,20 @@ the entry/exit is returned too: it is the stable feature id of a clipped end.
 Invariant: a segment end is either an original end (parameter exactly 0 or 1, plane -1) or lies on
 the plane that clipped it; no end lies outside any plane by more than rounding.
 
-Reduction (:func:`reduce_points`). Keep the deepest point, then greedily the candidate farthest
-(in the tangent space of the contact) from every point kept so far, up to a cap (farthest-point
-sampling). This keeps the extent of the contact patch, which is what stops a resting body from
-rocking: for a box face it picks the face corners first. Alternatives rejected: extremes along a
-fixed set of tangent directions (the corners of a face turned 45 degrees about the normal tie on the
-diagonal directions, and ties made the kept set flicker between steps); the area-maximising 3-D
-rule (Gregorius, GDC 2015) does not state itself in n-D without a hull of the candidates.
+Reduction (:func:`reduce_points`, used by the polytope kernel). Keep the deepest point, then
+greedily the candidate farthest (in the tangent space of the contact) from every point kept so far,
+up to a cap (farthest-point sampling). This keeps the extent of the contact patch, which is what
+stops a resting body from rocking. The area-maximising 3-D rule (Gregorius, GDC 2015) does not
+state itself in n-D without a hull of the candidates.
+
+Selection (:func:`select_points`, used by the box kernels). Farthest-point sampling picks edge
+points over corners once the patch is 3-D (4-D box faces), and both rules resolve the exact ties of
+symmetric resting poses by the last rounding bit, so the kept set, hence the warm-start keys,
+flickered from step to step. Here the candidates are first the extremes along diagonal sign
+patterns of the tangent axes (the corners of a box patch), then farthest-point fill; every score is
+rounded relative to the row's best at ``SELECT_QUANTUM`` and ties go to the lowest feature code.
+(An earlier try of extremes along fixed directions was rejected for flicker on faces turned by 45
+degrees; the rounding with code ties is what removes it.)
 """
 
 from __future__ import annotations
@@ -37,7 +44,14 @@ Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
 BoolArray = NDArray[np.bool_]
 
-__all__ = ["clip_segments", "manifold_cap", "reduce_points", "tangent_basis"]
+__all__ = ["clip_segments", "diagonal_directions", "manifold_cap", "reduce_points", "select_points",
+           "tangent_basis"]
+
+# Quantum of the selection scores of :func:`select_points`: scores closer than this (a fraction of the
+# patch's half-width, or of its squared extent) count as tied and the lower feature code wins. Exact
+# ties are the rule in resting contacts (symmetric poses); without the quantum the last bit of a
+# rounding error picks the winner and the kept set, hence the warm-start keys, flicker every step.
+SELECT_QUANTUM = 1e-3
 
 
 def manifold_cap(n: int) -> int:
@@ -157,3 +171,140 @@ def tangent_basis(normal: Array) -> Array:
     keep = np.ones((P, n), dtype=bool)
     keep[np.arange(P), j] = False
     return H[keep].reshape(P, n - 1, n)
+
+
+def diagonal_directions(d: int, cap: int) -> Array:
+    """Sign patterns (+-1 on each of d tangent axes) along which :func:`select_points` takes extremes.
+
+    All 2^d patterns when they fit under ``cap`` (the corners of a box patch); else the patterns of
+    even parity (2^(d-1) of them, the vertices of a demicube: they still span every tangent direction
+    and are centrally symmetric for d >= 2), cut to ``cap`` in lexicographic order if still too many.
+    (D, d) float, D <= cap.
+    """
+    if d == 0:
+        return np.zeros((1, 0))
+    bits = (np.arange(1 << d)[:, None] >> np.arange(d)[None, :]) & 1
+    signs = np.where(bits == 1, 1.0, -1.0)
+    if len(signs) > cap:
+        signs = signs[bits.sum(axis=1) % 2 == 0]
+    return signs[:cap]
+
+
+def _argmax_by_code(score: Array, codes: IntArray, live: BoolArray, quantum: Array | float) -> IntArray:
+    """Per row, the slot of the largest ``score`` among ``live`` slots; scores within about ``quantum``
+    (float or (P,)) of the best tie, and ties go to the lowest code.
+
+    The rounding is relative to the row's best score, not to a fixed grid: on a fixed grid a score
+    that sits on a cell boundary (a resting depth equal to half a cell, say) flips cells with every
+    rounding error, which is exactly the flicker the quantum is there to remove.
+    """
+    best = np.max(np.where(live, score, -np.inf), axis=1, keepdims=True)
+    q = np.broadcast_to(np.asarray(quantum, dtype=np.float64), (score.shape[0],))[:, None]
+    tie = live & (np.rint((score - best) / q) == 0.0)
+    big = np.iinfo(np.int64).max
+    return np.argmin(np.where(tie, codes, big), axis=1)
+
+
+def select_points(tangent: Array, valid: BoolArray, codes: IntArray, cap: int, directions: Array,
+                  tol: Array | float, depth: Array | None = None, quantum: float = SELECT_QUANTUM
+                  ) -> BoolArray:
+    """Choose at most ``cap`` points per pair that keep the extent of the contact patch, stably.
+
+    1. Slots repeating a feature code of their pair are dropped (the same corner reached twice).
+       With ``depth`` given, the deepest candidate is kept first (depths rounded to ``quantum``
+       times the patch diagonal, ties to the lowest code), so a tilted body never loses its
+       deepest corner to the cap.
+    2. Extremes: for each direction (rows of ``directions``, sign patterns over the tangent axes) the
+       candidate with the largest ``direction . z``, z the tangent coordinates scaled to the patch's
+       bounding box ([-1, 1] per axis). For a box-shaped patch these are exactly its corners, and for
+       a slightly turned or tilted one the points nearest them. (Farthest-point sampling, the rule
+       before this one, picks edge points over corners once the patch is 3-D: after two opposite
+       corners of a cube, a point on a far edge is farther from both than any other corner.)
+    3. Fill: while fewer than ``cap`` are kept, the candidate farthest from every kept point (in raw
+       tangent coordinates), if farther than ``tol``.
+
+    Scores are rounded to ``quantum`` (relative) and ties go to the lowest code, so a symmetric
+    pose, where extremes tie exactly, keeps the same points every step. In a
+    resting contact all depths tie, and the rounding turns that noise into a tie that the codes
+    break. The kept set does not depend on
+    the order of the slots, only on positions, depths and codes.
+
+    Args:
+        tangent: (P, K, d) float, tangent coordinates of the candidates.
+        valid: (P, K) bool, which slots hold candidates.
+        codes: (P, K) int feature codes (>= 0), unique per feature within a pair.
+        cap: most points kept per pair.
+        directions: (D, d) float sign patterns, D <= cap (see :func:`diagonal_directions`).
+        tol: float or (P,) float, a candidate nearer than this to a kept one is never added by the fill.
+        depth: optional (P, K) float depths (larger is deeper).
+        quantum: relative rounding of the scores.
+
+    Returns:
+        keep: (P, K) bool, a subset of ``valid``.
+    """
+    P, K = valid.shape
+    keep = np.zeros((P, K), dtype=bool)
+    if P == 0 or K == 0:
+        return keep
+    rows = np.arange(P)
+    big = np.iinfo(np.int64).max
+    # 1. duplicates of a code: keep the first slot of each (codes sorted per row, stable)
+    c = np.where(valid, codes, big)
+    order = np.argsort(c, axis=1, kind="stable")
+    cs = np.take_along_axis(c, order, axis=1)
+    dup = np.zeros((P, K), dtype=bool)
+    dup[:, 1:] = cs[:, 1:] == cs[:, :-1]
+    valid = valid.copy()
+    valid[rows[:, None], order] &= ~dup
+    # compact: valid slots first, drop the columns no pair uses
+    slot = np.argsort(~valid, axis=1, kind="stable")
+    width = int(valid.sum(axis=1).max())
+    if width == 0:
+        return keep
+    slot = slot[:, :width]
+    v = np.take_along_axis(valid, slot, axis=1)
+    t = np.take_along_axis(tangent, slot[..., None], axis=1)
+    cd = np.take_along_axis(codes, slot, axis=1)
+    has = v.any(axis=1)
+    # 2. extremes along the directions, in coordinates scaled to the patch's bounding box
+    lo = np.min(np.where(v[..., None], t, np.inf), axis=1, keepdims=True)
+    hi = np.max(np.where(v[..., None], t, -np.inf), axis=1, keepdims=True)
+    lo = np.where(has[:, None, None], lo, 0.0)
+    hi = np.where(has[:, None, None], hi, 0.0)
+    tol_a = np.broadcast_to(np.asarray(tol, dtype=np.float64), (P,))
+    half = np.maximum(0.5 * (hi - lo), tol_a[:, None, None] + 1e-300)
+    z = (t - 0.5 * (hi + lo)) / half
+    pick = np.zeros((P, width), dtype=bool)
+    score = z @ directions.T  # (P, width, D)
+    # squared tangent distance of every candidate to its nearest kept point, for the fill
+    mind = np.full((P, width), np.inf)
+    ext = np.sqrt(np.sum((hi - lo)[:, 0] ** 2, axis=1))  # patch diagonal
+    if depth is not None:
+        dp = np.take_along_axis(depth, slot, axis=1)
+        first = _argmax_by_code(dp, cd, v, quantum * np.maximum(ext, 1e-300))
+        pick[rows[has], first[has]] = True
+        mind = np.where(has[:, None], np.sum((t - t[rows, first][:, None, :]) ** 2, axis=-1), mind)
+    count = pick.sum(axis=1)
+    for k in range(directions.shape[0]):  # a loop over the (<= cap) directions, vectorised over pairs
+        best = _argmax_by_code(score[:, :, k], cd, v, quantum)
+        new = has & ~pick[rows, best] & (count < cap)
+        count += new
+        pick[rows[new], best[new]] = True
+        d2 = np.sum((t - t[rows, best][:, None, :]) ** 2, axis=-1)
+        mind = np.where(new[:, None], np.minimum(mind, d2), mind)
+    # 3. fill by farthest-point sampling from the kept set
+    ext2 = np.maximum(ext**2, 1e-300)
+    mind = np.where(v & ~pick, mind, -1.0)
+    tol2 = tol_a**2
+    for _ in range(cap - int(count.min())):  # at most cap rounds, vectorised over pairs
+        nxt = _argmax_by_code(mind, cd, mind > tol2[:, None], quantum * ext2)
+        take = (count < cap) & (mind[rows, nxt] > tol2)
+        if not np.any(take):
+            break
+        pick[rows[take], nxt[take]] = True
+        count += take
+        d2 = np.sum((t - t[rows, nxt][:, None, :]) ** 2, axis=-1)
+        mind = np.where(take[:, None], np.minimum(mind, d2), mind)
+        mind[rows[take], nxt[take]] = -1.0
+    keep[rows[:, None], slot] = pick & v
+    return keep

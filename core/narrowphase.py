@@ -362,27 +362,27 @@ def ball_box(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldP
 
 
 def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int) -> NDArray[np.bool_]:
-    """At most ``cap`` of the valid slots per row: the deepest, then farthest-point sampling.
+    """At most ``cap`` of the valid slots per row, by :func:`clip.select_points`: the deepest, then
+    farthest-point sampling, with near-ties going to the lower vertex index, so that a resting face
+    keeps the same corners every step (exact ties resolved by the last bit made them flicker).
 
-    tangent: (Q, V, m) coordinates in the contact plane; depth, valid: (Q, V). Loops over the cap
-    (<= 8), vectorised over rows.
+    tangent: (Q, V, n-1) coordinates in the contact plane; depth, valid: (Q, V). Rows with at most ``cap``
+    valid slots keep them all. Loops over the cap (<= 8), vectorised over rows.
     """
+    from .clip import select_points
+
     valid = valid.copy()
     over = np.flatnonzero(valid.sum(axis=1) > cap)
     if over.size == 0:
         return valid
     T = tangent[over]
-    val = valid[over]
-    rows = np.arange(over.size)
-    chosen = np.zeros_like(val)
-    pick = np.argmax(np.where(val, depth[over], -np.inf), axis=1)
-    chosen[rows, pick] = True
-    gap = np.sum((T - T[rows, pick][:, None]) ** 2, axis=2)
-    for _ in range(cap - 1):
-        pick = np.argmax(np.where(val & ~chosen, gap, -np.inf), axis=1)
-        chosen[rows, pick] = True
-        gap = np.minimum(gap, np.sum((T - T[rows, pick][:, None]) ** 2, axis=2))
-    valid[over] = chosen
+    V = T.shape[1]
+    codes = np.broadcast_to(np.arange(V, dtype=np.int64), (over.size, V))
+    ext = np.max(np.abs(T), axis=(1, 2))
+    # no extreme directions: farthest-point sampling from the deepest (a tilted body keeps its deepest
+    # corner; on a resting 5-D box face it keeps the 8 even corners, a demicube), with stable ties
+    valid[over] = select_points(T, valid[over], codes, cap, np.zeros((0, T.shape[2])), 1e-9 * ext,
+                                depth[over])
     return valid
 
 
@@ -390,11 +390,15 @@ def _vertices_plane(world: Array, u: Array, d: Array, margin: Array, cap: int) -
     """Vertices (Q, V, n) against planes (u (Q, n), d (Q,)), the vertex body being A.
 
     A vertex at signed height s = u . x - d is kept while s < margin; point x - u s / 2 (midway to
-    the plane), depth -s, normal -u, feature = vertex index.
+    the plane), depth -s, normal -u, feature = vertex index. Tangent coordinates for the reduction
+    are taken in the Householder basis of u (:func:`clip.tangent_basis`), a fixed frame for a fixed
+    plane.
     """
+    from .clip import tangent_basis
+
     s = np.einsum("qvi,qi->qv", world, u) - d[:, None]
     valid = s < margin[:, None]
-    tangent = world - np.einsum("qv,qi->qvi", np.einsum("qvi,qi->qv", world, u), u)
+    tangent = np.einsum("qvi,qki->qvk", world, tangent_basis(u))
     valid = _reduce(tangent, -s, valid, cap)
     q, v = np.nonzero(valid)
     sv = s[q, v]

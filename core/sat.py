@@ -26,21 +26,29 @@ Polyhedra", GDC 2013, stated for any n):
   edges are clipped against the reference face's side slab |x_i| <= h_i (i tangent) with
   :func:`clip.clip_segments`, and symmetrically the reference face's edges, projected along the
   normal onto the incident face's hyperplane, are clipped against the incident face's side slab.
-  The ends of both sets are candidates; those within the margin below the reference face are
-  reduced by :func:`clip.reduce_points`. The two sets find every corner of the overlap patch in 2-D,
-  3-D and 4-D (patch corners are where a j-face of one face meets a complementary face of the other;
-  the sets cover j = 0, 1 and their mirrors, which is all of them while n - 1 <= 3). In 5-D the
-  crossings of 2-faces with 2-faces are not generated; where that leaves no candidate at all (thin
-  faces crossed at right angles) one point is found by alternating projections onto the two faces.
+  The ends of both sets are candidates, and in n >= 5 so are the crossings of the j-faces of the
+  reference facet with the (n-1-j)-faces of the incident one, 2 <= j <= n-3 (each a j x j solve,
+  see ``_crossings``). Patch corners are where a j-face of one facet meets a complementary face
+  of the other; the two edge sets cover j = 0, 1 and their mirrors, which is all of them while
+  n - 1 <= 3, and the crossings cover the rest (5-D: 2-faces with 2-faces). Candidates within
+  the margin below the reference face are reduced by :func:`clip.select_points` along the
+  diagonal directions of the tangent axes, so a face-to-face patch keeps its corners (at most the
+  cap; in 5-D the 8 even corners of the 16). If no candidate survives (rounding at grazing poses)
+  one point is found by alternating projections onto the two faces.
 * Mixed contact: one point, midway between the closest points of the two support faces (affine
   flats; one n x n solve per pair for the two flats' parameters and the distance along the axis).
 * Speculative contacts: a pair separated along its best axis by less than the margin still gives
   points, with negative depth; points more than the margin above the reference face are dropped.
 
-Feature ids (int64) encode (reference box, reference face, incident face, side, feature) for face
-contacts, where the feature is a face vertex (by its vertex bits) or an edge crossing (edge, plane);
-and (axis, support-face signs of A and B) for mixed contacts. They do not change while the same
-features touch, so warm-start impulses carry over.
+Feature ids (int64) of face contacts: (reference box, reference face, incident face) in the high
+bits, and below them the set of side planes of both facets the point lies on (bit 2i / 2i + 1 for
+the +/- plane of axis i of the reference facet, the same shifted by 2n for the incident facet),
+within ``_FEATURE_TOL`` of the smaller box's largest half-extent. That set names a corner of the
+overlap patch whichever construction found it, so the same corner reached as an incident vertex
+and as a clipped reference edge end is one feature, and a resting box keeps its ids. (Rejected:
+ids from the construction, vertex bits or (edge, clip plane): the two twins carried different ids,
+rounding decided which was kept, and 8-19 % of the keys of a resting 10-box stack changed every
+step; with plane sets 0.02-0.1 %.) Mixed contacts: (axis, support-face signs of A and B).
 """
 
 from __future__ import annotations
@@ -54,7 +62,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .algebra import Algebra
-from .clip import clip_segments, manifold_cap, reduce_points
+from .clip import clip_segments, diagonal_directions, manifold_cap, select_points
 from .contacts import ManifoldPoints
 from .errors import InputError
 
@@ -70,6 +78,10 @@ _FACE_REL, _FACE_ABS = 0.02, 1e-5
 # the directions, roughly) is a near-duplicate of a face axis: skipped.
 _DEGENERATE = 1e-5
 _MIXED_FLAG = np.int64(1) << np.int64(40)
+# A corner of a face manifold lies on a side plane of a facet when within this fraction of the
+# smaller box's largest half-extent: coincident corners of the two facets then share one feature id
+# (see _plane_code), and a resting box that jitters by less than this keeps its ids.
+_FEATURE_TOL = 1e-3
 
 
 def box_axis_count(n: int) -> int:
@@ -96,6 +108,11 @@ class _Tables:
     # faces: for face axis j (0..n-1), the edges of the facet orthogonal to j
     edge_start: Array  # (n, Ne, n) signs +-1 of the start vertex on the tangent axes, 0 on axis j
     edge_axis: IntArray  # (n, Ne) the axis each edge runs along
+    # crossings of a j-face of the reference facet with an (n-1-j)-face of the incident facet,
+    # 2 <= j <= n-3 (only n >= 5), by tangent position (0..n-2, the facet's axes in ascending order):
+    # one tuple per j of (fixed reference positions A (NAB, j), free incident positions F (NAB, j),
+    # fixed incident positions B (NAB, n-1-j), signs of A (NSA, j), signs of B (NSB, n-1-j))
+    crossings: tuple[tuple[IntArray, IntArray, IntArray, Array, Array], ...]
 
 
 @cache
@@ -174,6 +191,19 @@ def _tables(n: int) -> _Tables:
                 ax.append(a)
         starts.append(st)
         axes.append(ax)
+    crossings = []
+    pos = range(n - 1)
+    for j in range(2, n - 2):
+        A_, F_, B_ = [], [], []
+        for A in itertools.combinations(pos, j):
+            for B in itertools.combinations(pos, n - 1 - j):
+                A_.append(A)
+                B_.append(B)
+                F_.append([q for q in pos if q not in B])
+        sa = np.array(list(itertools.product((-1.0, 1.0), repeat=j)))
+        sb = np.array(list(itertools.product((-1.0, 1.0), repeat=n - 1 - j)))
+        crossings.append((np.array(A_, dtype=np.int64), np.array(F_, dtype=np.int64),
+                          np.array(B_, dtype=np.int64), sa, sb))
     nm = len(idx)
     return _Tables(
         n=n,
@@ -186,6 +216,7 @@ def _tables(n: int) -> _Tables:
         mixed_in_b=np.array(in_b, dtype=bool).reshape(nm, n),
         edge_start=np.array(starts).reshape(n, -1, n),
         edge_axis=np.array(axes, dtype=np.int64).reshape(n, -1),
+        crossings=tuple(crossings),
     )
 
 
@@ -390,12 +421,11 @@ def _edge_ends(tab: _Tables, axis: IntArray, sign: Array, half: Array
     return p0, p1, st, run
 
 
-def _slab_clip(x0: Array, x1: Array, half: Array, skip: IntArray, st: Array, run: IntArray,
-               ) -> tuple[Array, Array, NDArray[np.bool_], IntArray, IntArray]:
+def _slab_clip(x0: Array, x1: Array, half: Array, skip: IntArray
+               ) -> tuple[Array, Array, NDArray[np.bool_]]:
     """Clip segments (S, Ne, n) against the slab |x_i| <= h_i for every axis i except ``skip``.
 
-    Returns t_in, t_out, ok (S, Ne) and the local feature codes of the entry and exit ends (S, Ne):
-    an unclipped end is the face vertex (its vertex bits), a clipped end is 2^n + edge * 2n + plane.
+    Returns t_in, t_out and ok (S, Ne): the entry and exit parameters and whether anything is left.
     """
     S, Ne, n = x0.shape
     lo = np.empty((S, Ne, 2 * n))
@@ -408,18 +438,24 @@ def _slab_clip(x0: Array, x1: Array, half: Array, skip: IntArray, st: Array, run
     for f in (lo, hi):  # the normal axis bounds nothing
         f[rs, :, 2 * skip] = -1.0
         f[rs, :, 2 * skip + 1] = -1.0
-    t_in, t_out, pl_in, pl_out, ok = clip_segments(lo, hi)
-    bits = (st > 0.0).astype(np.int64) @ (np.int64(1) << np.arange(n, dtype=np.int64))
-    bits_end = bits | (np.int64(1) << run)
-    edge = np.arange(Ne, dtype=np.int64)[None, :]
-    code_in = np.where(pl_in < 0, bits, (1 << n) + edge * 2 * n + pl_in)
-    code_out = np.where(pl_out < 0, bits_end, (1 << n) + edge * 2 * n + pl_out)
-    return t_in, t_out, ok, code_in, code_out
+    t_in, t_out, _, _, ok = clip_segments(lo, hi)
+    return t_in, t_out, ok
 
 
-def _local_span(n: int, tab: _Tables) -> int:
-    """Number of local feature codes of one side: vertex bits (2^n) plus edge x plane codes."""
-    return (1 << n) + tab.edge_axis.shape[1] * 2 * n
+def _plane_code(x: Array, half: Array, skip: IntArray, tol: Array, shift: int) -> IntArray:
+    """Bits of the facet side planes a point lies on, within ``tol``: (S, K, n) -> (S, K) int.
+
+    Bit shift + 2i: x_i >= h_i - tol; bit shift + 2i + 1: x_i <= -h_i + tol; axis ``skip`` (the
+    facet's normal axis) is left out. This is the feature id of a corner of the overlap patch: the
+    planes that meet there, whichever construction (vertex, clipped edge, crossing) found it.
+    """
+    S, K, n = x.shape
+    lim = (half - tol[:, None])[:, None, :]
+    w = np.int64(1) << (shift + 2 * np.arange(n, dtype=np.int64))
+    w = np.broadcast_to(w, (S, n)).copy()
+    w[np.arange(S), skip] = 0
+    return (np.einsum("pki,pi->pk", (x >= lim).astype(np.int64), w)
+            + np.einsum("pki,pi->pk", (x <= -lim).astype(np.int64), 2 * w))
 
 
 def _take(a: Array, idx: IntArray) -> Array:
@@ -455,13 +491,13 @@ def _face_contacts(tab: _Tables, sel: IntArray, use_b: NDArray[np.bool_], ia: In
     QT = np.swapaxes(Q, 1, 2)
     x0 = e[:, None, :] + y0 @ QT
     x1 = e[:, None, :] + y1 @ QT
-    t_in, t_out, ok_i, c_in, c_out = _slab_clip(x0, x1, h_ref, m, st, run)
+    t_in, t_out, ok_i = _slab_clip(x0, x1, h_ref, m)
     ends = np.concatenate([x0 + t_in[..., None] * (x1 - x0), x0 + t_out[..., None] * (x1 - x0)], axis=1)
+    inc_i = np.concatenate([y0 + t_in[..., None] * (y1 - y0), y0 + t_out[..., None] * (y1 - y0)], axis=1)
     dep_i = h_m[:, None] - s[:, None] * _take(ends, m)
     nref = s[:, None] * np.eye(n)[m]  # (S, n) reference normal, reference coordinates
     mid_i = ends + 0.5 * dep_i[..., None] * nref[:, None, :]
     ok_i = np.concatenate([ok_i, ok_i], axis=1)
-    code_i = np.concatenate([c_in, c_out], axis=1)
 
     # -- reference face edges, slid along the normal onto the incident hyperplane, clipped there -----
     r0, r1, rst, rrun = _edge_ends(tab, m, s, h_ref)
@@ -474,25 +510,38 @@ def _face_contacts(tab: _Tables, sel: IntArray, use_b: NDArray[np.bool_], ia: In
     t1 = (target - _take(g1, jn)) / qn[rs, jn][:, None]
     g0 = g0 + t0[..., None] * qn[:, None, :]
     g1 = g1 + t1[..., None] * qn[:, None, :]
-    u_in, u_out, ok_r, k_in, k_out = _slab_clip(g0, g1, h_inc, jn, rst, rrun)
+    u_in, u_out, ok_r = _slab_clip(g0, g1, h_inc, jn)
     ends_r = np.concatenate([r0 + u_in[..., None] * (r1 - r0), r0 + u_out[..., None] * (r1 - r0)], axis=1)
+    inc_r = np.concatenate([g0 + u_in[..., None] * (g1 - g0), g0 + u_out[..., None] * (g1 - g0)], axis=1)
     height = np.concatenate([t0 + u_in * (t1 - t0), t0 + u_out * (t1 - t0)], axis=1)
     dep_r = -height  # the incident surface lies |height| below the reference face
     mid_r = ends_r + 0.5 * height[..., None] * nref[:, None, :]
     ok_r = np.concatenate([ok_r, ok_r], axis=1)
-    span = _local_span(n, tab)
-    code_r = np.concatenate([k_in, k_out], axis=1) + span
 
-    pts = np.concatenate([mid_i, mid_r], axis=1)  # (S, 4 Ne, n), reference frame
-    dep = np.concatenate([dep_i, dep_r], axis=1)
-    ok = np.concatenate([ok_i, ok_r], axis=1) & (dep > -margin_s[:, None])
-    code = np.concatenate([code_i, code_r], axis=1)
-    # tangent coordinates: every axis but the normal one
+    # tangent axes: every axis but the normal one, ascending (reference and incident facets)
     tax = np.argsort(np.arange(n)[None, :] == m[:, None], axis=1, kind="stable")[:, : n - 1]
-    tang = np.take_along_axis(pts, tax[:, None, :], axis=-1)
-    keep = reduce_points(tang, dep, ok, manifold_cap(n), 1e-6 * np.max(h_ref, axis=1), code)
+    tinc = np.argsort(np.arange(n)[None, :] == jn[:, None], axis=1, kind="stable")[:, : n - 1]
+    parts_p, parts_d, parts_ok, parts_y = [mid_i, mid_r], [dep_i, dep_r], [ok_i, ok_r], [inc_i, inc_r]
+    # -- n >= 5: crossings of j-faces of the reference facet with (n-1-j)-faces of the incident one ---
+    for cross in tab.crossings:
+        cp, cd, cok, cy = _crossings(cross, Q, e, h_ref, h_inc, m, s, jn, sig, tax, tinc, nref)
+        parts_p.append(cp)
+        parts_d.append(cd)
+        parts_ok.append(cok)
+        parts_y.append(cy)
 
-    # fallback: no candidate survived (possible only for n >= 5, see notes) though the SAT says contact
+    pts = np.concatenate(parts_p, axis=1)  # (S, K, n), reference frame
+    dep = np.concatenate(parts_d, axis=1)
+    inc = np.concatenate(parts_y, axis=1)  # the same points on the incident facet, incident frame
+    ok = np.concatenate(parts_ok, axis=1) & (dep > -margin_s[:, None])
+    # canonical feature codes: the side planes of both facets each candidate lies on (module notes)
+    ftol = _FEATURE_TOL * np.minimum(np.max(h_ref, axis=1), np.max(h_inc, axis=1))
+    code = _plane_code(pts, h_ref, m, ftol, 0) + _plane_code(inc, h_inc, jn, ftol, 2 * n)
+    tang = np.take_along_axis(pts, tax[:, None, :], axis=-1)
+    cap = manifold_cap(n)
+    keep = select_points(tang, ok, code, cap, diagonal_directions(n - 1, cap), 1e-6 * np.max(h_ref, axis=1))
+
+    # fallback: no candidate survived though the SAT says contact (rounding at grazing poses)
     empty = np.flatnonzero(~np.any(keep, axis=1))
     fb_pts, fb_dep = _fallback_point(Q[empty], e[empty], h_ref[empty], h_inc[empty], m[empty], s[empty],
                                      jn[empty], sig[empty])
@@ -503,11 +552,11 @@ def _face_contacts(tab: _Tables, sel: IntArray, use_b: NDArray[np.bool_], ia: In
     loc = np.concatenate([p_idx, empty])
     x_ref = np.concatenate([pts[p_idx, k_idx], fb_pts])
     depth = np.concatenate([dep[p_idx, k_idx], fb_dep])
-    codes = np.concatenate([code[p_idx, k_idx], np.full(len(empty), 2 * span, dtype=np.int64)])
+    codes = np.concatenate([code[p_idx, k_idx], np.zeros(len(empty), dtype=np.int64)])
     ref_face = m + n * (s < 0)
     inc_face = jn + n * (sig < 0)
     head = (flip.astype(np.int64) * 2 * n + ref_face) * 2 * n + inc_face
-    feature = head[loc] * (2 * span + 1) + codes
+    feature = (head[loc] << np.int64(4 * n)) + codes
 
     # to world, by the reference box's pose; the normal from A to B is -n_ref when B is the reference
     pair = sel[loc]
@@ -517,6 +566,56 @@ def _face_contacts(tab: _Tables, sel: IntArray, use_b: NDArray[np.bool_], ia: In
     point = pos_r + np.einsum("pij,pj->pi", rot_r, x_ref)
     normal = rot_r[np.arange(len(pair)), :, m[loc]] * (s[loc] * np.where(flip_l, -1.0, 1.0))[:, None]
     return ManifoldPoints(pair.astype(np.int64), normal, point, depth, feature.astype(np.int64))
+
+
+def _crossings(cross: tuple[IntArray, IntArray, IntArray, Array, Array], Q: Array, e: Array, h_ref: Array,
+               h_inc: Array, m: IntArray, s: Array, jn: IntArray, sig: Array, tax: IntArray, tinc: IntArray,
+               nref: Array) -> tuple[Array, Array, NDArray[np.bool_], Array]:
+    """Corners where a j-face of the reference facet crosses an (n-1-j)-face of the incident facet.
+
+    Seen along the reference normal, the incident facet is x = x0 + P y over its tangent
+    coordinates y (P = Q[tangent axes of the reference, tangent axes of the incident facet]). Fixing
+    the reference coordinates x_A = +-h_A and the incident coordinates y_B = +-g_B leaves the j
+    free incident coordinates y_F, from the j x j system P[A, F] y_F = +-h_A - x0_A - P[A, B] y_B.
+    A solution inside both facets is a corner of the overlap patch. Returns the candidates as the
+    other parts of :func:`_face_contacts` do: midway points (S, K, n) in the reference frame, depths,
+    validity and the incident-frame points (S, K, n), K = NAB * NSA * NSB.
+    """
+    cA, cF, cB, sA, sB = cross
+    S, n = e.shape
+    rs = np.arange(S)
+    P = Q[rs[:, None, None], tax[:, :, None], tinc[:, None, :]]  # (S, n-1, n-1)
+    x0 = (np.take_along_axis(e, tax, axis=1)
+          + Q[rs[:, None], tax, jn[:, None]] * (sig * h_inc[rs, jn])[:, None])
+    hr = np.take_along_axis(h_ref, tax, axis=1)
+    gi = np.take_along_axis(h_inc, tinc, axis=1)
+    M = P[:, cA[:, :, None], cF[:, None, :]]  # (S, NAB, j, j)
+    det = np.linalg.det(M)
+    good = np.abs(det) > _DEGENERATE
+    Minv = np.linalg.inv(np.where(good[..., None, None], M, np.eye(M.shape[-1])))
+    yB = gi[:, cB][:, :, None, :] * sB[None, None]  # (S, NAB, NSB, b)
+    hA = hr[:, cA][:, :, None, :] * sA[None, None]  # (S, NAB, NSA, j)
+    PAB = P[:, cA[:, :, None], cB[:, None, :]]  # (S, NAB, j, b)
+    rhs = ((hA - x0[:, cA][:, :, None, :])[:, :, :, None, :]
+           - np.einsum("pajb,pasb->pasj", PAB, yB)[:, :, None])
+    yF = np.einsum("pajk,pastk->pastj", Minv, rhs)  # (S, NAB, NSA, NSB, j)
+    NAB, NSA, NSB = cA.shape[0], sA.shape[0], sB.shape[0]
+    eye = np.eye(n - 1)
+    # tangent incident coordinates: y_B fixed, y_F solved (one-hot scatter by the per-crossing tables)
+    Y = (np.einsum("pastj,ajq->pastq", yF, eye[cF])
+         + np.einsum("pasb,abq->pasq", yB, eye[cB])[:, :, None])
+    Y = Y.reshape(S, NAB * NSA * NSB, n - 1)
+    x = x0[:, None, :] + Y @ np.swapaxes(P, 1, 2)
+    slack = 1e-9 * np.max(h_ref, axis=1)[:, None, None]
+    inside = (np.all(np.abs(Y) <= gi[:, None, :] + slack, axis=2)
+              & np.all(np.abs(x) <= hr[:, None, :] + slack, axis=2))
+    inside &= np.repeat(good, NSA * NSB, axis=1)
+    inc = np.zeros((S, Y.shape[1], n))
+    np.put_along_axis(inc, np.broadcast_to(tinc[:, None, :], Y.shape), Y, axis=2)
+    inc[rs, :, jn] = (sig * h_inc[rs, jn])[:, None]
+    X = e[:, None, :] + inc @ np.swapaxes(Q, 1, 2)  # on the incident facet, reference frame
+    dep = h_ref[rs, m][:, None] - s[:, None] * _take(X, m)
+    return X + 0.5 * dep[..., None] * nref[:, None, :], dep, inside, inc
 
 
 def _fallback_point(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: IntArray, s: Array, jn: IntArray,
