@@ -19,8 +19,9 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
   ball/half-space, ball/box, box/half-space, polytope/half-space, and box/box by the separating-axis
   test over all C(2n, n-1) candidate axes (the mixed axes as generalised cross products, i.e.
   determinants, rather than the vectorised path's minor tables), with the same coherence
-  preference, the same clipping of the incident and reference face edges, the same reduction and
-  feature ids (core/narrowphase.py, core/sat.py, core/clip.py). Pairs involving a general convex
+  preference, the same clipping of the incident and reference face edges, the same 2-face
+  crossings in 5-D, the same plane-set feature ids and the same stable selection of the kept
+  points (core/narrowphase.py, core/sat.py, core/clip.py). Pairs involving a general convex
   polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`, which are per pair already;
 * ``solve_contacts``: contact by contact, the same sequence (core/solver.py): prepare each row
   (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias),
@@ -41,20 +42,23 @@ Invariants kept equal to the vectorised path, so that results agree to rounding:
   segment is one row). For "manifold" and "point" batching no dynamic body appears in two
   segments of a batch, so this is also plain Gauss-Seidel across segments.
 * The colouring (which rows share a batch) is the same greedy Luby rule, written as loops over the
-  items; it decides the order only. Reused, not restated: bookkeeping with no physics in it, namely
-  :func:`broadphase.shape_cloud` (the cached local point cloud of a polytope, mesh or compound),
+  items, on the same priorities (the ranks of the contact keys XOR the per-step salt of the step
+  counter kept in ``caches["solver"]["step"]``); it decides the order only. Reused, not
+  restated: bookkeeping with no physics in it, namely :func:`broadphase.shape_cloud` (the cached
+  local point cloud of a polytope, mesh or compound),
   :class:`narrowphase.ShapeStore` (compound piece tables and mesh hulls), and
   :func:`sleep.wake_touched` (waking sleeping islands hit by awake bodies).
 
-Choices: exact ties (two candidate axes with the same overlap to the last bit, two reduction
-candidates at the same distance) are broken by "first in order" as ``argmin``/``argmax`` do. Where
-the two paths see such a tie differently by one rounding step they can keep different points;
-measured, this happens for one structural tie only: a face contact often offers the same point
-twice (an incident vertex, and the clipped end of a reference edge through it; about 3 % of the
-box/box points of random 2-D and 3-D pairs, none in 4-D and 5-D), and which twin survives, hence its
-feature id and key, is decided by the last bit of two equal depths. The tests match such a twin by
-position. Rejected: calling the vectorised kernels with batches of one (it would test nothing), and
-a shared helper layer between the two paths (a bug in it would hide from the comparison).
+Choices: exact ties between candidate axes are broken by "first in order" as ``argmin`` does.
+The point selections round their scores (relative to the best, at ``clip.SELECT_QUANTUM``) and
+give ties to the lowest feature code, so a rounding step of difference between the two paths does
+not change the kept set. A face contact often offers the same corner twice (an incident vertex,
+and the clipped end of a reference edge through it); both copies carry the same plane-set feature
+id and the first slot is kept, so the paths agree on it (measured on 160 random scenes, 3,175
+points in 2-D..5-D: 0 points whose key differs; it was about 3 % of the box/box points in 2-D and
+3-D with construction ids). Rejected: calling the vectorised kernels with batches of one (it
+would test nothing), and a shared helper layer between the two paths (a bug in it would hide from
+the comparison).
 """
 
 from __future__ import annotations
@@ -66,6 +70,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .algebra import Algebra
+
+# tuning constants are shared with the vectorised modules (comments where they are used)
+from .clip import SELECT_QUANTUM as _SELECT_QUANTUM
 from .components import (
     DYNAMIC,
     KINEMATIC,
@@ -80,9 +87,7 @@ from .components import (
 )
 from .contacts import ContactSet
 from .errors import InputTypeError
-
-# tuning constants are shared with the vectorised modules (comments where they are used)
-from .sat import _DEGENERATE, _FACE_ABS, _FACE_REL, _MIXED_ABS, _MIXED_FLAG, _MIXED_REL
+from .sat import _DEGENERATE, _FACE_ABS, _FACE_REL, _FEATURE_TOL, _MIXED_ABS, _MIXED_FLAG, _MIXED_REL
 from .solver import _MATCH_DISTANCE, _SLIP_SPEED, _STICK_TOL
 from .solver import HERTZ_CAP as _HERTZ_CAP
 
@@ -398,29 +403,35 @@ def _vertex_cap(n: int) -> int:
     return min(1 << (n - 1), 8)
 
 
+def _plane_basis(u: Array) -> Array:
+    """Orthonormal basis (n-1, n) of the complement of a unit normal u (n,): the rows other than row
+    j of the Householder reflection H = I - 2 w w^T / (w . w), w = u + s e_j (j: the largest
+    component of u, s its sign), the fixed frame in which a plane's tangent coordinates are taken."""
+    n = u.shape[0]
+    j = int(np.argmax(np.abs(u)))
+    w = u.copy()
+    w[j] += 1.0 if u[j] >= 0.0 else -1.0
+    H = np.eye(n) - 2.0 * np.outer(w, w) / float(np.sum(w * w))
+    return np.delete(H, j, axis=0)
+
+
 def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int) -> list[_Point]:
     """Vertices (V, n) of A against the plane (u, d) of B: those whose height s is below the margin,
-    at most ``cap`` of them (the deepest, then farthest-point sampling in the plane).
+    at most ``cap`` of them: the deepest, then farthest-point sampling in the plane's tangent
+    coordinates, near-ties going to the lower vertex index (:func:`_select_points` with no extreme
+    directions), so a resting face keeps the same corners every step.
 
-    The sampling meets exact ties by construction (the corners of a box face, seen from two
-    opposite corners, pair up at equal distances), resolved by the last bit. So the products on this
-    path (corners, heights, plane) are evaluated by ``np.einsum`` one item at a time, which sums in
-    the same order as the vectorised kernel's einsums: measured on 100 random 5-D box/half-space
-    poses, 10 kept a different corner with ``@`` products and none with einsum.
+    The products (corners, heights, tangent coordinates) are evaluated by ``np.einsum`` one item at
+    a time, which sums in the same order as the vectorised kernel's einsums.
     """
     V = world.shape[0]
     s = [float(np.einsum("i,i->", world[v], u)) - d for v in range(V)]
     valid = [s[v] < margin for v in range(V)]
     if sum(valid) > cap:
-        tang = [world[v] - np.einsum("i,i->", world[v], u) * u for v in range(V)]
-        first = max((v for v in range(V) if valid[v]), key=lambda v: (-s[v], -v))  # deepest, first on ties
-        chosen = {first}
-        gap = [float(np.sum((tang[v] - tang[first]) ** 2)) for v in range(V)]
-        for _ in range(cap - 1):
-            nxt = max((v for v in range(V) if valid[v] and v not in chosen), key=lambda v: (gap[v], -v))
-            chosen.add(nxt)
-            gap = [min(gap[v], float(np.sum((tang[v] - tang[nxt]) ** 2))) for v in range(V)]
-        valid = [v in chosen for v in range(V)]
+        basis = _plane_basis(u)
+        tang = [np.einsum("i,ki->k", world[v], basis) for v in range(V)]
+        ext = max(float(np.max(np.abs(t))) for t in tang)
+        valid = _select_points(tang, valid, list(range(V)), cap, [], 1e-9 * ext, [-x for x in s])
     return [_Point(-u, world[v] - u * (0.5 * s[v]), -s[v], v) for v in range(V) if valid[v]]
 
 
@@ -522,13 +533,9 @@ def _clip_one(f0: list[float], f1: list[float]) -> tuple[float, float, int, int,
     return t_in, t_out, p_in, p_out, (not empty) and t_in <= t_out
 
 
-def _slab_clip(x0: Array, x1: Array, half: Array, skip: int, start: Array, run: int, edge: int
-               ) -> tuple[float, float, bool, int, int]:
-    """Clip the segment x0 -> x1 against |x_i| <= h_i for every axis i but ``skip``.
-
-    Planes 2i (x_i - h_i) and 2i + 1 (-x_i - h_i); returns t_in, t_out, ok and the feature codes of
-    the two ends: a face vertex (its vertex bits) where unclipped, else 2^n + edge * 2n + plane.
-    """
+def _slab_clip(x0: Array, x1: Array, half: Array, skip: int) -> tuple[float, float, bool]:
+    """Clip the segment x0 -> x1 against |x_i| <= h_i for every axis i but ``skip``: planes 2i
+    (x_i - h_i) and 2i + 1 (-x_i - h_i); returns t_in, t_out and whether anything is left."""
     n = x0.shape[0]
     f0: list[float] = []
     f1: list[float] = []
@@ -539,44 +546,100 @@ def _slab_clip(x0: Array, x1: Array, half: Array, skip: int, start: Array, run: 
         else:
             f0 += [x0[i] - half[i], -x0[i] - half[i]]
             f1 += [x1[i] - half[i], -x1[i] - half[i]]
-    t_in, t_out, p_in, p_out, ok = _clip_one(f0, f1)
-    bits = sum(1 << i for i in range(n) if start[i] > 0.0)
-    bits_end = bits | (1 << run)
-    code_in = bits if p_in < 0 else (1 << n) + edge * 2 * n + p_in
-    code_out = bits_end if p_out < 0 else (1 << n) + edge * 2 * n + p_out
-    return t_in, t_out, ok, code_in, code_out
+    t_in, t_out, _, _, ok = _clip_one(f0, f1)
+    return t_in, t_out, ok
 
 
-def _reduce_points(tang: list[Array], depth: list[float], valid: list[bool], codes: list[int], cap: int,
-                   tol: float) -> list[bool]:
-    """At most ``cap`` candidates: the first of each feature code, then the deepest, then greedily
-    the one farthest (in the tangent space) from all kept so far while farther than ``tol``."""
-    K = len(depth)
+def _plane_code(x: Array, half: Array, skip: int, tol: float, shift: int) -> int:
+    """Bits of the facet side planes the point x (n,) lies on within ``tol``, axis ``skip`` left out:
+    bit shift + 2i for x_i >= h_i - tol, bit shift + 2i + 1 for x_i <= -(h_i - tol)."""
+    code = 0
+    for i in range(x.shape[0]):
+        if i == skip:
+            continue
+        lim = half[i] - tol
+        if x[i] >= lim:
+            code += 1 << (shift + 2 * i)
+        if x[i] <= -lim:
+            code += 1 << (shift + 2 * i + 1)
+    return code
+
+
+def _best_by_code(score: list[float], codes: list[int], live: list[bool], quantum: float) -> int:
+    """The slot of the largest score among live slots, -1 if none: scores that round to the best at
+    ``quantum`` (relative to the best) tie, and a tie goes to the lowest code."""
+    cands = [q for q in range(len(score)) if live[q]]
+    if not cands:
+        return -1
+    best = max(score[q] for q in cands)
+    ties = [q for q in cands if np.rint((score[q] - best) / quantum) == 0.0]
+    return min(ties, key=lambda q: codes[q])
+
+
+def _diagonals(d: int, cap: int) -> list[Array]:
+    """Sign patterns over d tangent axes: all 2^d (pattern q has +1 on axis i where bit i of q is
+    set) when they fit under ``cap``, else those with an even number of +1, the first ``cap``."""
+    pats = [np.array([1.0 if (q >> i) & 1 else -1.0 for i in range(d)]) for q in range(1 << d)]
+    if len(pats) > cap:
+        pats = [pats[q] for q in range(1 << d) if bin(q).count("1") % 2 == 0]
+    return pats[:cap]
+
+
+def _select_points(tang: list[Array], valid: list[bool], codes: list[int], cap: int, directions: list[Array],
+                   tol: float, depth: list[float] | None = None) -> list[bool]:
+    """At most ``cap`` candidates (core/clip.py ``select_points`` stated one pair at a time).
+
+    The first slot of each feature code; then, with depths, the deepest (depths rounded to the
+    selection quantum times the patch diagonal, ties to the lowest code); then for each direction
+    the candidate with the largest direction . z, z the tangent coordinates scaled to the patch's
+    bounding box, ties (at the quantum) to the lowest code; then while fewer than ``cap`` are kept,
+    the candidate farthest from every kept one if farther than ``tol`` (distances squared, rounded
+    to the quantum times the squared diagonal, ties to the lowest code).
+    """
+    K = len(valid)
     seen: set[int] = set()
-    live = []
-    for q in range(K):  # slots repeating a code of the pair are duplicates (same vertex, other edge)
+    live: list[int] = []
+    for q in range(K):  # slots repeating a code of the pair are the same corner reached twice
         if valid[q] and codes[q] not in seen:
             seen.add(codes[q])
             live.append(q)
     keep = [False] * K
     if not live:
         return keep
-    first = live[0]
-    for q in live:
-        if depth[q] > depth[first]:
-            first = q
-    keep[first] = True
-    mind = {q: float(np.sum((tang[q] - tang[first]) ** 2)) for q in live}
-    for _ in range(min(cap, len(live)) - 1):
-        nxt = live[0]
-        for q in live:
-            if mind[q] > mind[nxt]:
-                nxt = q
-        if not mind[nxt] > tol * tol:
+    L = len(live)
+    d = tang[live[0]].shape[0]
+    lo = [min(float(tang[q][i]) for q in live) for i in range(d)]
+    hi = [max(float(tang[q][i]) for q in live) for i in range(d)]
+    half = [max(0.5 * (hi[i] - lo[i]), tol + 1e-300) for i in range(d)]
+    z = [np.array([(tang[q][i] - 0.5 * (hi[i] + lo[i])) / half[i] for i in range(d)]) for q in live]
+    ext = float(np.sqrt(sum((hi[i] - lo[i]) ** 2 for i in range(d))))
+    lc = [codes[q] for q in live]
+    on = [True] * L
+
+    def dist2(p: int, r: int) -> float:
+        return float(sum((tang[live[p]][i] - tang[live[r]][i]) ** 2 for i in range(d)))
+
+    picked: list[int] = []
+    mind = [np.inf] * L
+    if depth is not None:
+        first = _best_by_code([depth[q] for q in live], lc, on, _SELECT_QUANTUM * max(ext, 1e-300))
+        picked.append(first)
+        mind = [dist2(p, first) for p in range(L)]
+    for direction in directions:
+        best = _best_by_code([float(z[p] @ direction) for p in range(L)], lc, on, _SELECT_QUANTUM)
+        if best not in picked and len(picked) < cap:
+            picked.append(best)
+            mind = [min(mind[p], dist2(p, best)) for p in range(L)]
+    ext2 = max(ext * ext, 1e-300)
+    while len(picked) < cap:
+        gap = [-1.0 if p in picked else mind[p] for p in range(L)]
+        nxt = _best_by_code(gap, lc, [g > tol * tol for g in gap], _SELECT_QUANTUM * ext2)
+        if nxt < 0:
             break
-        keep[nxt] = True
-        for q in live:
-            mind[q] = min(mind[q], float(np.sum((tang[q] - tang[nxt]) ** 2)))
+        picked.append(nxt)
+        mind = [min(mind[p], dist2(p, nxt)) for p in range(L)]
+    for p in picked:
+        keep[live[p]] = True
     return keep
 
 
@@ -656,11 +719,13 @@ def _box_box_face(A: _Collider, B: _Collider, C: Array, d: Array, flip: bool, ia
                   margin: float) -> list[_Point]:
     """Clipped face manifold of one box pair, in the reference box's frame (see core/sat.py).
 
-    The edge ends of each face are transformed together, as an (Ne, n) matrix product, and the
-    frame products use ``np.einsum`` in the kernel's index form: an incident vertex and a clipped
-    reference-edge end at the same point tie on depth, and only the same evaluation order resolves
-    the tie the same way (measured on random pairs: 3-D twins matched by position went from 36 to 0
-    of 1240 points; 2-D keeps about 2 %, which the tests match by position).
+    Candidates: the incident face's edges clipped against the reference face's side slab, the
+    reference face's edges slid onto the incident face's hyperplane and clipped against its slab,
+    and (n >= 5) the crossings of j-faces of the reference facet with (n-1-j)-faces of the incident
+    one, 2 <= j <= n-3. Each candidate's feature code is the set of side planes of both facets it
+    lies on (within ``_FEATURE_TOL`` of the smaller box's largest half-extent), whichever construction found
+    it; the edge ends of each face are transformed together, as an (Ne, n) matrix product, with
+    the frame products in the kernel's ``np.einsum`` index form.
     """
     n = A.pos.shape[0]
     # reference frame: Q = R_ref^T R_inc (incident axes as columns), e = incident centre
@@ -674,10 +739,10 @@ def _box_box_face(A: _Collider, B: _Collider, C: Array, d: Array, flip: bool, ia
     sig = -1.0 if s * qm[jn] > 0.0 else 1.0  # its face that looks back at the reference face
     nref = np.zeros(n)
     nref[m] = s
-    pts: list[Array] = []
+    pts: list[Array] = []  # midway points, reference frame
+    inc: list[Array] = []  # the same points on the incident facet, incident frame
     dep: list[float] = []
     ok: list[bool] = []
-    code: list[int] = []
     # incident face edges clipped against the reference face's side slab
     ins, outs = [], []
     edges = _face_edges(n, jn)
@@ -686,60 +751,110 @@ def _box_box_face(A: _Collider, B: _Collider, C: Array, d: Array, flip: bool, ia
     for q, (_, run) in enumerate(edges):
         Y1[q, run] = -Y0[q, run]
     X0, X1 = e + Y0 @ Q.T, e + Y1 @ Q.T
-    for edge, (start, run) in enumerate(edges):
-        st = start.copy()
-        st[jn] = sig
-        x0, x1 = X0[edge], X1[edge]
-        t_in, t_out, okk, c_in, c_out = _slab_clip(x0, x1, h_ref, m, st, run, edge)
-        ins.append((x0 + t_in * (x1 - x0), okk, c_in))
-        outs.append((x0 + t_out * (x1 - x0), okk, c_out))
-    for end, okk, cc in ins + outs:
+    for edge in range(len(edges)):
+        x0, x1, y0, y1 = X0[edge], X1[edge], Y0[edge], Y1[edge]
+        t_in, t_out, okk = _slab_clip(x0, x1, h_ref, m)
+        ins.append((x0 + t_in * (x1 - x0), y0 + t_in * (y1 - y0), okk))
+        outs.append((x0 + t_out * (x1 - x0), y0 + t_out * (y1 - y0), okk))
+    for end, y, okk in ins + outs:
         dp = h_ref[m] - s * end[m]
         pts.append(end + 0.5 * dp * nref)
+        inc.append(y)
         dep.append(float(dp))
         ok.append(okk)
-        code.append(cc)
     # reference face edges slid along the normal onto the incident face's plane, clipped there
-    span = (1 << n) + (n - 1) * (1 << (n - 2)) * 2 * n
     qn = s * qm
     target = sig * h_inc[jn]
-    ins_r: list[tuple[Array, float, bool, int]] = []
-    outs_r: list[tuple[Array, float, bool, int]] = []
+    ins_r: list[tuple[Array, Array, float, bool]] = []
+    outs_r: list[tuple[Array, Array, float, bool]] = []
     edges = _face_edges(n, m)
     R0 = np.array([np.where(np.arange(n) == m, s, st) * h_ref for st, _ in edges])
     R1 = R0.copy()
     for q, (_, run) in enumerate(edges):
         R1[q, run] = -R0[q, run]
     G0, G1 = (R0 - e) @ Q, (R1 - e) @ Q
-    for edge, (start, run) in enumerate(edges):
-        st = start.copy()
-        st[m] = s
+    for edge in range(len(edges)):
         r0, r1, g0, g1 = R0[edge], R1[edge], G0[edge], G1[edge]
         t0 = (target - g0[jn]) / qn[jn]
         t1 = (target - g1[jn]) / qn[jn]
-        u_in, u_out, okk, k_in, k_out = _slab_clip(g0 + t0 * qn, g1 + t1 * qn, h_inc, jn, st, run, edge)
-        ins_r.append((r0 + u_in * (r1 - r0), t0 + u_in * (t1 - t0), okk, k_in))
-        outs_r.append((r0 + u_out * (r1 - r0), t0 + u_out * (t1 - t0), okk, k_out))
-    for end, height, okk, cc in ins_r + outs_r:
+        g0, g1 = g0 + t0 * qn, g1 + t1 * qn
+        u_in, u_out, okk = _slab_clip(g0, g1, h_inc, jn)
+        ins_r.append((r0 + u_in * (r1 - r0), g0 + u_in * (g1 - g0), t0 + u_in * (t1 - t0), okk))
+        outs_r.append((r0 + u_out * (r1 - r0), g0 + u_out * (g1 - g0), t0 + u_out * (t1 - t0), okk))
+    for end, y, height, okk in ins_r + outs_r:
         pts.append(end + 0.5 * height * nref)  # the incident surface lies |height| below
+        inc.append(y)
         dep.append(float(-height))
         ok.append(okk)
-        code.append(cc + span)
+    # n >= 5: crossings of j-faces of the reference facet with (n-1-j)-faces of the incident facet
+    tax = [i for i in range(n) if i != m]
+    tinc = [i for i in range(n) if i != jn]
+    for x, y, dp, okk in _crossings(Q, e, h_ref, h_inc, m, s, jn, sig, tax, tinc):
+        pts.append(x + 0.5 * dp * nref)
+        inc.append(y)
+        dep.append(dp)
+        ok.append(okk)
     ok = [o and dp > -margin for o, dp in zip(ok, dep, strict=True)]
+    ftol = _FEATURE_TOL * min(float(np.max(h_ref)), float(np.max(h_inc)))
+    code = [_plane_code(x, h_ref, m, ftol, 0) + _plane_code(y, h_inc, jn, ftol, 2 * n)
+            for x, y in zip(pts, inc, strict=True)]
     tang = [np.delete(p, m) for p in pts]
-    keep = _reduce_points(tang, dep, ok, code, _vertex_cap(n), 1e-6 * float(np.max(h_ref)))
+    cap = _vertex_cap(n)
+    keep = _select_points(tang, ok, code, cap, _diagonals(n - 1, cap), 1e-6 * float(np.max(h_ref)))
     chosen = [(pts[q], dep[q], code[q]) for q in range(len(pts)) if keep[q]]
-    if not chosen:  # no candidate survived (5-D faces crossed at right angles, see core/sat.py)
+    if not chosen:  # no candidate survived (rounding at grazing poses)
         x, dp = _fallback_point(Q, e, h_ref, h_inc, m, s, jn, sig)
         if dp > -margin:
-            chosen = [(x, dp, 2 * span)]
+            chosen = [(x, dp, 0)]
     ref_face = m + (n if s < 0 else 0)
     inc_face = jn + (n if sig < 0 else 0)
     head = ((2 * n if flip else 0) + ref_face) * 2 * n + inc_face
     pos_r, rot_r = (B.pos, B.rot) if flip else (A.pos, A.rot)
     normal = rot_r[:, m] * (s * (-1.0 if flip else 1.0))
-    return [_Point(normal, pos_r + np.einsum("ij,j->i", rot_r, x), dp, head * (2 * span + 1) + cc)
+    return [_Point(normal, pos_r + np.einsum("ij,j->i", rot_r, x), dp, (head << (4 * n)) + cc)
             for x, dp, cc in chosen]
+
+
+def _crossings(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: int, s: float, jn: int, sig: float,
+               tax: list[int], tinc: list[int]) -> list[tuple[Array, Array, float, bool]]:
+    """Where a j-face of the reference facet crosses an (n-1-j)-face of the incident facet (n >= 5).
+
+    In tangent coordinates (reference axes ``tax``, incident axes ``tinc``, ascending) the incident
+    facet seen along the normal is x = x0 + P y. Fixing x_A = +-h_A (a j-face of the reference
+    facet) and y_B = +-g_B (an (n-1-j)-face of the incident one) leaves the j coordinates y_F (F the
+    positions not in B), solved from P[A, F] y_F = +-h_A - x0_A - P[A, B] y_B. Returns, in the
+    kernel's slot order (j, A, B, signs of A, signs of B), the point on the incident facet (reference
+    frame), its incident-frame coordinates, its depth, and whether it lies inside both facets.
+    """
+    n = e.shape[0]
+    P = Q[np.ix_(tax, tinc)]
+    x0 = e[tax] + Q[tax, jn] * (sig * h_inc[jn])
+    hr, gi = h_ref[tax], h_inc[tinc]
+    slack = 1e-9 * float(np.max(h_ref))
+    pos = range(n - 1)
+    out = []
+    for j in range(2, n - 2):
+        for cA in itertools.combinations(pos, j):
+            for cB in itertools.combinations(pos, n - 1 - j):
+                cF = [q for q in pos if q not in cB]
+                Mx = P[np.ix_(cA, cF)]
+                good = abs(float(np.linalg.det(Mx))) > _DEGENERATE
+                for sA in itertools.product((-1.0, 1.0), repeat=j):
+                    for sB in itertools.product((-1.0, 1.0), repeat=n - 1 - j):
+                        yB = gi[list(cB)] * np.array(sB)
+                        rhs = hr[list(cA)] * np.array(sA) - x0[list(cA)] - P[np.ix_(cA, cB)] @ yB
+                        Y = np.zeros(n - 1)
+                        Y[list(cB)] = yB
+                        Y[cF] = np.linalg.solve(Mx, rhs) if good else rhs
+                        x = x0 + P @ Y
+                        inside = good and bool(np.all(np.abs(Y) <= gi + slack)
+                                               and np.all(np.abs(x) <= hr + slack))
+                        y = np.zeros(n)
+                        y[tinc] = Y
+                        y[jn] = sig * h_inc[jn]
+                        X = e + Q @ y
+                        out.append((X, y, float(h_ref[m] - s * X[m]), inside))
+    return out
 
 
 def _fallback_point(Q: Array, e: Array, h_ref: Array, h_inc: Array, m: int, s: float, jn: int, sig: float
@@ -1100,8 +1215,13 @@ def solve_contacts_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
     old = caches.get("solver") or {"key": np.zeros(0, np.int64)}
     lam_n, lam_t, sliding = _warm_start_values(contacts, pair, old, bool(settings.warm_start))
     active = [i for i in range(M) if dyn[contacts.body_a[i]] or dyn[contacts.body_b[i]]]
+    # the step counter salts the batch order: step times the golden-ratio odd constant, modulo 2^64,
+    # as a signed 64-bit value (a Weyl sequence, so the order changes every step)
+    step = int(old.get("step", 0)) + 1
+    salt = (step * 0x9E3779B97F4A7C15) % (1 << 64)
+    salt = _to_int64(salt)
     if active:
-        _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings)
+        _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings, salt)
     order = sorted(range(M), key=lambda i: int(contacts.key[i]))
     pair_sorted = [pair[i] for i in order]
     caches["solver"] = {
@@ -1109,20 +1229,22 @@ def solve_contacts_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
         "tangent": np.array([lam_t[i] for i in order]).reshape(M, n),
         "sliding": np.array([sliding[i] for i in order], dtype=bool),
         "pair": np.array(pair_sorted, dtype=np.int64), "point": contacts.point[order].copy(),
-        "by_pair": np.array(sorted(range(M), key=lambda j: pair_sorted[j]), dtype=np.int64)}
+        "by_pair": np.array(sorted(range(M), key=lambda j: pair_sorted[j]), dtype=np.int64),
+        "step": np.int64(step)}
 
 
 def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], dyn: list[bool],
                 lam_n: list[float], lam_t_world: list[Array], sliding: list[bool], dt: float,
-                settings: Any) -> None:
-    """Solve the active rows; writes their impulses and sliding flags into the given lists."""
+                settings: Any, salt: int) -> None:
+    """Solve the active rows; writes their impulses and sliding flags into the given lists. The batch
+    priorities are the ranks of the contact keys XOR ``salt`` (signed 64-bit)."""
     n, k = alg.n, alg.k
     w = n + k
     batching = getattr(settings, "solver_batching", "point")
     a_of = [int(c.body_a[i]) for i in active]
     b_of = [int(c.body_b[i]) for i in active]
     colour = _row_colours(batching, a_of, b_of, [dyn[x] for x in a_of], [dyn[x] for x in b_of],
-                          [int(c.key[i]) for i in active], [int(c.manifold[i]) for i in active])
+                          [int(c.key[i]) ^ salt for i in active], [int(c.manifold[i]) for i in active])
     # rows in (colour, manifold, row) order; each colour is one batch
     order = sorted(range(len(active)), key=lambda q: (colour[q], int(c.manifold[active[q]])))
     rows = [active[q] for q in order]
