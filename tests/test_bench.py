@@ -1,0 +1,46 @@
+"""The benchmark command runs every scene and writes valid JSON records (no timing asserted)."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from ndrigid.bench.__main__ import main
+from ndrigid.bench.scenes import SCENES
+
+FIELDS = {"scene", "dim", "bodies", "steps", "median_step_ms", "p90_step_ms", "stage_ms", "contacts",
+          "max_depth", "peak_rss_mb"}
+
+
+@pytest.mark.parametrize("dim", [2, 4], ids=["2d", "4d"])
+def test_every_scene_writes_a_record(dim: int, tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    out = tmp_path / "bench.json"
+    bodies = {"pyramid": 3}
+    for scene in SCENES:
+        assert main([scene, "--dim", str(dim), "--bodies", str(bodies.get(scene, 12)), "--steps", "2",
+                     "--json", str(out)]) == 0
+        rec = json.loads(out.read_text())[0]
+        assert FIELDS <= rec.keys()
+        assert rec["scene"] == scene and rec["dim"] == dim and rec["steps"] == 2
+        assert rec["median_step_ms"] > 0 and rec["p90_step_ms"] >= rec["median_step_ms"]
+        assert all(v >= 0 for v in rec["stage_ms"].values())
+    assert "median ms" in capsys.readouterr().out
+
+
+def test_compare_runs_both_paths(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    out = tmp_path / "cmp.json"
+    assert main(["pile", "--dim", "3", "--bodies", "6", "--steps", "3", "--compare", "--json", str(out)]) == 0
+    recs = json.loads(out.read_text())
+    assert [r["path"] for r in recs] == ["vectorised", "reference"]
+    assert recs[0]["speedup_over_reference"] > 0
+    # the same scene: same bodies on both paths
+    assert recs[0]["bodies"] == recs[1]["bodies"]
+
+
+def test_bad_arguments_exit_with_a_message(capsys) -> None:  # type: ignore[no-untyped-def]
+    with pytest.raises(SystemExit):
+        main(["nosuchscene"])
+    assert "scene" in capsys.readouterr().err
+    with pytest.raises(SystemExit):
+        main(["pile", "--dim", "1"])
