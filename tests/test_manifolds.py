@@ -172,3 +172,54 @@ def test_tangent_basis_of_axis_normals_regression(dim: int, rng: np.random.Gener
     assert np.all(np.isfinite(Q))
     assert np.allclose(np.einsum("pki,pli->pkl", Q, Q), np.eye(n - 1))
     assert np.allclose(np.einsum("pki,pkj->pij", Q, Q), np.eye(n) - U[:, :, None] * U[:, None, :])
+
+
+def test_4d_face_manifold_is_face_corners_regression() -> None:
+    """Regression (farthest-point reduction kept edge points): a 4-D box resting face-down on an equal
+    box, shifted by ~2 mm and turned by ~2 mrad in random planes, keeps one point at each of the 8
+    corners of the nearly square patch: every point within 1 cm of a corner of the top face, all 8
+    corners covered (hand-checked geometry: the overlap of two nearly aligned equal faces is the face
+    up to the shift plus the turn times the half-diagonal, ~3 mm; common practice: a resting face
+    is held at its corners). The old rule kept points up to 0.49 m from any corner."""
+    n = 4
+    corners = np.array(np.meshgrid(*[[-0.5, 0.5]] * (n - 1), indexing="ij")).reshape(n - 1, -1).T
+    for seed in range(5):
+        rng = np.random.default_rng(seed)
+        pa, Ra, ha = np.zeros(n), np.eye(n), np.full(n, 0.5)
+        shift = np.delete(np.eye(n), 1, axis=0).T @ rng.normal(size=n - 1) * 2e-3  # tangent, ~2 mm
+        pb = np.r_[0.0, 1.0 - 0.001, 0.0, 0.0] + shift
+        i, j = rng.choice(n, 2, replace=False)
+        Rb = plane_rotation(n, int(i), int(j), 2e-3)
+        mp = via_sat(n, pa, Ra, ha, pb, Rb, ha, 0.02)
+        assert len(mp.pair) == 8
+        tangent = np.delete(mp.point, 1, axis=1)
+        dist = np.linalg.norm(tangent[:, None, :] - corners[None], axis=2)  # (8 points, 8 corners)
+        assert dist.min(axis=1).max() < 0.01, seed
+        assert len(set(dist.argmin(axis=1).tolist())) == 8, seed
+
+
+def test_5d_face_crossings_regression() -> None:
+    """Regression (2-face crossings not generated in 5-D): a 5-D unit box on an equal one, turned by 45
+    degrees in the (e0, e2) and (e3, e4) planes, 1 mm deep. The overlap patch is the product of two
+    regular octagons (a square cut by its 45-degree turn: vertices at radius 0.5 / cos(22.5 deg), at
+    22.5 + 45 k degrees; elementary geometry), and its 64 corners are crossings of 2-faces of one
+    facet with 2-faces of the other, which no edge clipping finds (the old kernel fell back to one
+    point). Expected: the cap of 8 points, all at patch corners, at depth 1 mm with normal +e1, a
+    centrally symmetric set (common practice: a resting face is held around its centre)."""
+    n = 5
+    R = plane_rotation(n, 0, 2, math.pi / 4) @ plane_rotation(n, 3, 4, math.pi / 4)
+    h = np.full(n, 0.5)
+    pb = np.r_[0.0, 1.0 - 0.001, 0.0, 0.0, 0.0]
+    mp = via_sat(n, np.zeros(n), np.eye(n), h, pb, R, h, 0.02)
+    assert len(mp.pair) == 8
+    assert np.allclose(mp.normal, np.eye(n)[1], atol=1e-12)
+    assert np.allclose(mp.depth, 0.001, atol=1e-12)
+    radius = 0.5 / math.cos(math.pi / 8)
+    for a, b in ((0, 2), (3, 4)):
+        x, y = mp.point[:, a], mp.point[:, b]
+        assert np.allclose(np.hypot(x, y), radius, atol=1e-9)
+        ang = np.degrees(np.arctan2(y, x)) - 22.5
+        assert np.allclose((ang + 1e-9) % 45.0, 0.0, atol=1e-6)
+    tangent = np.round(np.delete(mp.point, 1, axis=1), 9)
+    assert len(np.unique(tangent, axis=0)) == 8
+    assert {tuple(t) for t in tangent.tolist()} == {tuple(t) for t in (-tangent + 0.0).tolist()}

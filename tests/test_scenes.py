@@ -180,14 +180,13 @@ def test_glancing_spinning_collision_conserves_momentum(dim, rng):
 # stacking
 # ---------------------------------------------------------------------------------------------
 
-_MANIFOLD_GAP = ("a stack of ten rocks in 4-D and 5-D: the box/box manifolds of 4-D and 5-D faces "
-                 "keep clipped edge points (and, in 5-D, 8 of the 16 face corners) in place of the face's "
-                 "corners, and even with exact face contacts the point Gauss-Seidel solve creeps ~2% of a "
-                 "box in 10 s in 4-D (bench/solver.py, exact_stack)")
+_SWAY_5D = ("a 5-D stack of ten sways 0.7-1.4 cm over 10 s by start (1 mm jitter), with exact face "
+            "contacts too (bench/solver.py exact_stack: 1.2 cm): the point Gauss-Seidel solve with the "
+            "salted order, not the manifolds (2-D..4-D: 0.07-0.85 cm)")
 
 
-_STACK_DIMS = [pytest.param(d, id=dim_id(d), marks=[pytest.mark.xfail(strict=True, reason=_MANIFOLD_GAP)]
-                            if d >= 4 else []) for d in ALL_DIMS]
+_STACK_DIMS = [pytest.param(d, id=dim_id(d), marks=[pytest.mark.xfail(strict=True, reason=_SWAY_5D)]
+                            if d >= 5 else []) for d in ALL_DIMS]
 
 
 @pytest.mark.parametrize("dim", _STACK_DIMS)
@@ -211,6 +210,33 @@ def test_stack_of_ten_rests(dim):
         worst = max(worst, sim.kinetic_energy() / mass)
     assert np.linalg.norm(sim.position(top) - x1) < 0.01
     assert worst < 1e-3
+
+
+@dims()
+def test_resting_stack_keeps_feature_ids_regression(dim):
+    """Regression (feature ids flickered: 8-19 % of the box/box keys of a resting stack changed every
+    step, as an incident corner and a reference corner at the same place carried different ids and
+    rounding chose one): five boxes resting on a floor, after a 1 s settle, keep their contact keys,
+    fewer than 1 % of the keys being new from one step to the next over 1 s (common practice: warm
+    starting needs feature ids that persist while the same features touch; Catto, "Iterative
+    Dynamics with Temporal Coherence", GDC 2005)."""
+    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    up = up_vector(dim)
+    sim.add_body(HalfSpace(up, 0.0), kind="static")
+    for level in range(5):
+        sim.add_body(Box(np.full(dim, 0.5)), position=(0.5 + level) * up, friction=0.6)
+    for _ in range(60):
+        sim.step()
+    prev = sim.contacts.key.copy()
+    new = total = 0
+    for _ in range(60):
+        sim.step()
+        keys = sim.contacts.key
+        new += int(np.count_nonzero(~np.isin(keys, prev)))
+        total += keys.size
+        prev = keys.copy()
+    assert total >= 60 * 5 * 2 ** min(dim - 1, 3) * 0.9  # every face contact is there (cap 8)
+    assert new < 0.01 * total
 
 
 @dims(3, 4)
