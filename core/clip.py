@@ -265,7 +265,7 @@ def select_points(tangent: Array, valid: BoolArray, codes: IntArray, cap: int, d
     v = np.take_along_axis(valid, slot, axis=1)
     t = np.take_along_axis(tangent, slot[..., None], axis=1)
     cd = np.take_along_axis(codes, slot, axis=1)
-    has = v.any(axis=1)
+    has: BoolArray = np.any(v, axis=1)
     # 2. extremes along the directions, in coordinates scaled to the patch's bounding box
     lo = np.min(np.where(v[..., None], t, np.inf), axis=1, keepdims=True)
     hi = np.max(np.where(v[..., None], t, -np.inf), axis=1, keepdims=True)
