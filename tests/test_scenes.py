@@ -180,21 +180,20 @@ def test_glancing_spinning_collision_conserves_momentum(dim, rng):
 # stacking
 # ---------------------------------------------------------------------------------------------
 
-_SWAY_5D = ("a 5-D stack of ten sways 0.7-1.4 cm over 10 s by start (1 mm jitter), with exact face "
-            "contacts too (bench/solver.py exact_stack: 1.2 cm): the point Gauss-Seidel solve with the "
-            "salted order, not the manifolds (2-D..4-D: 0.07-0.85 cm)")
+# A 5-D stack of ten sways 0.7-1.4 cm over 10 s with the default 8 velocity iterations (exact face
+# contacts too, bench/solver.py exact_stack: 1.2 cm), so the 5-D case runs with 12 iterations, as the
+# README's solver section advises for tall 5-D stacks. Measured with 12 (three starts with 1 mm
+# jitter): 0.39-0.51 cm; with substeps=2 instead: 0.26 cm.
+_STACK_ITERATIONS = {5: 12}
 
 
-_STACK_DIMS = [pytest.param(d, id=dim_id(d), marks=[pytest.mark.xfail(strict=True, reason=_SWAY_5D)]
-                            if d >= 5 else []) for d in ALL_DIMS]
-
-
-@pytest.mark.parametrize("dim", _STACK_DIMS)
+@pytest.mark.parametrize("dim", ALL_DIMS, ids=[dim_id(d) for d in ALL_DIMS])
 def test_stack_of_ten_rests(dim):
     """Ten unit boxes stacked at 60 Hz, sleeping off: after the soft contacts settle (1 s), the top
     box moves less than 1% of its size over 10 s and the kinetic energy stays below 1 mJ per kg
     (common practice: a resting stack must not jitter or creep)."""
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    iterations = _STACK_ITERATIONS.get(dim, Settings().velocity_iterations)
+    sim = Simulation(dim, settings=Settings(allow_sleep=False, velocity_iterations=iterations))
     up = up_vector(dim)
     sim.add_body(HalfSpace(up, 0.0), kind="static")
     top = -1
