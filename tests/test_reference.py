@@ -230,7 +230,7 @@ def assert_same_impulses(vec: Simulation, ref: Simulation, m: np.ndarray) -> int
     return pushing
 
 
-def run_lockstep(dim: int, build, steps: int, settings: Settings) -> None:
+def check_lockstep(dim: int, build, steps: int, settings: Settings) -> None:
     """Every stage of every step from the same input: the vectorised stage on the simulation, the
     reference stage on a copy taken just before it; outputs compared, then the vectorised run goes on.
 
@@ -264,7 +264,7 @@ def run_lockstep(dim: int, build, steps: int, settings: Settings) -> None:
     assert saw_contacts > 0 and saw_push > 0
 
 
-def run_free(dim: int, build, steps: int, settings: Settings) -> None:
+def check_free_run(dim: int, build, steps: int, settings: Settings) -> None:
     """A vectorised and a reference-stage copy of one scene stepped side by side from the same
     start: each step's contacts and impulses, the events, and the final state agree."""
     vec = build(dim, 7, settings)
@@ -286,14 +286,14 @@ def run_free(dim: int, build, steps: int, settings: Settings) -> None:
 @dims()
 def test_stages_agree_in_lockstep(dim: int, scene: str) -> None:
     """Six steps of each small scene, stage by stage, with the default (point) batching."""
-    run_lockstep(dim, SCENES[scene], 6, Settings(allow_sleep=False))
+    check_lockstep(dim, SCENES[scene], 6, Settings(allow_sleep=False))
 
 
 @pytest.mark.parametrize("batching", ["manifold", "jacobi"])
 @dims(3, 4)
 def test_lockstep_for_the_other_batchings(dim: int, batching: str) -> None:
     """Colour by manifold with mass splitting inside one, and one Jacobi batch."""
-    run_lockstep(dim, scene_stack, 4, Settings(allow_sleep=False, solver_batching=batching))
+    check_lockstep(dim, scene_stack, 4, Settings(allow_sleep=False, solver_batching=batching))
 
 
 @pytest.mark.parametrize("scene", list(SCENES))
@@ -301,7 +301,7 @@ def test_lockstep_for_the_other_batchings(dim: int, batching: str) -> None:
 def test_free_runs_agree(dim: int, scene: str) -> None:
     """Six whole steps on each path with the default point batching: the same keys, hence the same
     salted batch order, every step (module notes)."""
-    run_free(dim, SCENES[scene], 6, Settings(allow_sleep=False))
+    check_free_run(dim, SCENES[scene], 6, Settings(allow_sleep=False))
 
 
 def test_solve_without_contacts_resets_the_cache() -> None:
