@@ -565,6 +565,8 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{args.scene} {args.dim}-D: {res['frames']} frames, step time mean {s['mean']:.2f} ms, "
               f"median {s['median']:.2f} ms, max {s['max']:.2f} ms; last frame {res['last']}")
         return 0
+    os.environ.setdefault("SDL_AUDIODRIVER", "dummy")  # the demo makes no sound
+    os.environ.setdefault("PYGAME_HIDE_SUPPORT_PROMPT", "1")
     import pygame
 
     pygame.init()
