@@ -17,9 +17,8 @@ os.environ.setdefault("SDL_VIDEODRIVER", "dummy")
 os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 pygame = pytest.importorskip("pygame")
 
-from test_demo import SIZE, _body_pixels  # noqa: E402
-
 from ndrigid.demo.app import App  # noqa: E402
+from test_demo import SIZE, _body_pixels  # noqa: E402
 
 
 @pytest.fixture
