@@ -229,13 +229,46 @@ def _overlapping(loT: Array, hiT: Array, a: IntArray, b: IntArray) -> tuple[IntA
 
     ``loT``, ``hiT`` are (n, N) (axis-major, so each gather is 1-D); the pair set is compacted after
     each axis, so later axes test only the survivors. Measured on 108k random 3-D pairs: 1.1 ms,
-    against 9.3 ms for gathering (P, 2n) box rows and reducing with ``all(axis=1)``.
+    against 9.3 ms for gathering (P, 2n) box rows and reducing with ``all(axis=1)``. The survivors
+    are compacted by ``flatnonzero`` and integer gathers: a boolean-mask index ``a[m]`` with an
+    unpredictable mask costs about 4.5 times as much (0.46 against 0.10 ms on 108k slots).
     """
     for i in range(loT.shape[0]):  # loop over axes
         lo_i, hi_i = loT[i], hiT[i]
-        m = np.maximum(lo_i[a] - hi_i[b], lo_i[b] - hi_i[a]) <= 0.0
+        m = np.flatnonzero((lo_i[a] <= hi_i[b]) & (lo_i[b] <= hi_i[a]))
         a, b = a[m], b[m]
     return a, b
+
+
+def _cell_runs(group: IntArray, slo: Array, shi: Array, pattern: NDArray[Any]) -> tuple[IntArray, IntArray]:
+    """Entry pairs (i, j), i < j, sharing a cell and overlapping on the sweep axis, corner cell only.
+
+    Entries (T,) are sorted by cell ``group`` and, inside a cell, by sweep lower bound ``slo``, so
+    the partners of entry i are the run i + 1, i + 2, ... of entries in its cell whose lower bound
+    is <= ``shi[i]``. The runs are walked together, one offset k per pass over the still-open
+    entries (a loop over run lengths, a few tens at most: 19 passes on the benchmark), emitting
+    (i, i + k) where the two offset patterns are disjoint (the corner-cell rule). Measured on the
+    benchmark's 43k entries: 1.8 ms, against 4.1 ms for a ``searchsorted`` of every run's end
+    (its needles are unsorted) plus an expansion with :func:`_runs` and a corner mask.
+    """
+    T = group.size
+    gpad = np.append(group, -1)  # a sentinel cell ends the last run
+    lpad = np.append(slo, np.inf)
+    act = np.arange(T)
+    top = shi
+    firsts, offsets = [], []
+    k = 1
+    while act.size:  # loop over run offsets
+        j = act + k
+        m = np.flatnonzero((gpad[j] == gpad[act]) & (lpad[j] <= top))
+        act, top = act[m], top[m]
+        c = np.flatnonzero((pattern[act] & pattern[act + k]) == 0)
+        firsts.append(act[c])
+        offsets.append(k)
+        k += 1
+    i = np.concatenate(firsts)
+    step = np.repeat(np.array(offsets, dtype=np.int64), [f.size for f in firsts])
+    return i, i + step
 
 
 def sweep_and_prune_pairs(lo: Array, hi: Array) -> IntArray:
@@ -322,22 +355,22 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
     small = np.flatnonzero(~big)
     if small.size > 1:
         S = small.size
-        ranked = small[np.argsort(lo[small, sweep], kind="stable")]  # small boxes by sweep lower bound
-        bound = np.searchsorted(lo[ranked, sweep], hi[ranked, sweep], side="right")
+        # default (unstable) sort: ties may fall either way, the pair set does not depend on it;
+        # measured 0.10 ms against 0.58 ms for kind="stable" on 10k floats
+        ranked = small[np.argsort(lo[small, sweep])]  # small boxes by sweep lower bound
         bits = (np.arange(1 << m)[:, None] >> np.arange(m)[None, :]) & 1  # (2^m, m) offset patterns
-        two = (span2[ranked] << np.arange(m)).sum(axis=1)  # grid axes on which the box covers 2 cells
+        two = span2[ranked] @ (1 << np.arange(m))  # grid axes on which the box covers 2 cells
         ok = (np.arange(1 << m)[None, :] & ~two[:, None]) == 0
         owner, pattern = np.nonzero(ok)  # owner = sweep rank; entries come out in rank order
         key, exact = _cell_keys(c_lo[ranked], owner, pattern, bits)
-        P = 1 << m
-        if exact and float(key.max() + 1) * S * P < 2.0**62:
-            # one plain integer sort of (cell, rank, pattern) packed in an int64 (cheaper than a
-            # stable argsort plus three gathers)
-            packed = np.sort((key * S + owner) * P + pattern)
-            pattern = packed % P
-            comp = packed // P  # cell * S + rank, strictly increasing
-            rank = comp % S
-            cellkey = comp - rank
+        sb = max(1, int(S - 1).bit_length())  # rank bits
+        if exact and float(key.max() + 1) * float(1 << (sb + m)) < 2.0**62:
+            # one plain integer sort of (cell, rank, pattern) packed in an int64 with shifts and
+            # masks (cheaper than a stable argsort plus three gathers, or integer division)
+            packed = np.sort((((key << sb) | owner) << m) | pattern)
+            pattern = packed & ((1 << m) - 1)
+            rank = (packed >> m) & ((1 << sb) - 1)
+            group = packed >> (sb + m)
         else:
             order = np.argsort(key, kind="stable")  # by cell, and by sweep rank within a cell
             ks = key[order]
@@ -345,16 +378,15 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
             pattern = pattern[order]
             first = np.ones(ks.size, dtype=bool)
             first[1:] = ks[1:] != ks[:-1]
-            cellkey = (np.cumsum(first) - 1) * S  # cell group index, scaled
-            comp = cellkey + rank  # strictly increasing along the sorted entries
-        T = comp.size
-        end = np.searchsorted(comp, cellkey + bound[rank], side="left")
-        i, j = _runs(end - np.arange(T) - 1)
-        po = pattern.astype(np.uint8 if m <= 8 else np.int64)
-        keep = (po[i] & po[j]) == 0  # the corner cell only
+            group = np.cumsum(first) - 1  # cell group index
         body = ranked[rank]
-        a, b = body[i[keep]], body[j[keep]]
-        a, b = _overlapping(np.ascontiguousarray(glo.T), np.ascontiguousarray(ghi.T), a, b)
+        po = pattern.astype(np.uint8 if m <= 8 else np.int64)
+        i, j = _cell_runs(group, lo[body, sweep], hi[body, sweep], po)
+        # the grid-axis test on entry indices (entry-ordered bounds: j is near i, and the body
+        # gather is left to the survivors)
+        loT, hiT = np.ascontiguousarray(glo.T), np.ascontiguousarray(ghi.T)
+        i, j = _overlapping(np.take(loT, body, axis=1), np.take(hiT, body, axis=1), i, j)
+        a, b = body[i], body[j]
         out.append(np.stack([a, b], axis=1))
     bigs = np.flatnonzero(big)
     if bigs.size:
