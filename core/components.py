@@ -176,7 +176,9 @@ class Bodies(Table):
 
     def world_inv_inertia(self) -> NDArray[np.float64]:
         """World-frame inverse inertia maps (N, k, k): C2(P) diag(inv_inertia) C2(P)^T."""
-        C = self.alg.rotor_to_compound(self.alg.rotor_mul(self.rotor, self.principal_rotor))
+        from .integrate import body_frames
+
+        C = body_frames(self.alg, self.rotor, self.principal_rotor)
         return np.matmul(C * self.inv_inertia[:, None, :], np.swapaxes(C, -1, -2))
 
 

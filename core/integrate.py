@@ -42,7 +42,13 @@ GYRO_NONE = "none"
 
 
 def body_frames(alg: Algebra, rotor: Array, principal_rotor: Array) -> Array:
-    """Second compound matrices (N, k, k) of the world-from-principal rotations ``R Q``."""
+    """Second compound matrices (N, k, k) of the world-from-principal rotations ``R Q``.
+
+    Shapes whose principal axes are their own axes (balls, boxes, most polytopes) carry the exact
+    identity rotor Q (scalar part exactly 1); when every row does, ``R Q = R`` is used directly.
+    """
+    if principal_rotor.shape[0] and np.all(principal_rotor[:, 0] == 1.0):
+        return alg.rotor_to_compound(rotor)
     return alg.rotor_to_compound(alg.rotor_mul(rotor, principal_rotor))
 
 
