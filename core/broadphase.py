@@ -264,16 +264,18 @@ def _cell_runs(group: IntArray, slo: Array, shi: Array, pattern: NDArray[Any]) -
     (its needles are unsorted) plus an expansion with :func:`_runs` and a corner mask.
     """
     T = group.size
-    gpad = np.append(group, -1)  # a sentinel cell ends the last run
-    lpad = np.append(slo, np.inf)
+    lpad = np.append(slo, np.inf)  # a sentinel ends the last run
+    starts = np.flatnonzero(np.append(True, group[1:] != group[:-1]))
+    sizes = np.diff(np.append(starts, T))
+    stop = np.repeat(starts + sizes, sizes)  # (T,) end of each entry's cell
     act = np.arange(T)
     top = shi
     firsts, offsets = [], []
     k = 1
     while act.size:  # loop over run offsets
         j = act + k
-        m = np.flatnonzero((gpad[j] == gpad[act]) & (lpad[j] <= top))
-        act, top = act[m], top[m]
+        m = np.flatnonzero((j < stop) & (lpad[j] <= top))
+        act, top, stop = act[m], top[m], stop[m]
         c = np.flatnonzero((pattern[act] & pattern[act + k]) == 0)
         firsts.append(act[c])
         offsets.append(k)
@@ -281,6 +283,17 @@ def _cell_runs(group: IntArray, slo: Array, shi: Array, pattern: NDArray[Any]) -
     i = np.concatenate(firsts)
     step = np.repeat(np.array(offsets, dtype=np.int64), [f.size for f in firsts])
     return i, i + step
+
+
+def _widest_axis(lo: Array, hi: Array) -> int:
+    """The axis along which the box centres (N, n bounds) spread most (largest variance).
+
+    Computed as sum(x^2) - (sum x)^2 / N (its cancellation only blurs near-ties, where either axis
+    serves): 0.17 ms on (10k, 4), against 0.43 ms for ``np.var``.
+    """
+    x = lo + hi
+    s = x.sum(axis=0)
+    return int(np.argmax(np.einsum("ij,ij->j", x, x) - s * s / x.shape[0]))
 
 
 def sweep_and_prune_pairs(lo: Array, hi: Array) -> IntArray:
@@ -293,7 +306,7 @@ def sweep_and_prune_pairs(lo: Array, hi: Array) -> IntArray:
     N = lo.shape[0]
     if N < 2:
         return _empty_pairs()
-    axis = int(np.argmax(np.var(lo + hi, axis=0)))
+    axis = _widest_axis(lo, hi)
     order = np.argsort(lo[:, axis], kind="stable")
     ls = lo[order, axis]
     end = np.searchsorted(ls, hi[order, axis], side="right")
@@ -324,7 +337,10 @@ def _cell_keys(c_lo: IntArray, body: IntArray, pattern: IntArray, bits: IntArray
     extent = c_lo.max(axis=0) - cmin + 2
     if float(np.prod(extent.astype(np.float64))) < 2.0**62:
         stride = np.concatenate([[1], np.cumprod(extent[:-1])]).astype(np.int64)
-        base = (c_lo - cmin) @ stride
+        off = c_lo - cmin
+        base = off[:, 0] * stride[0]
+        for i in range(1, off.shape[1]):  # loop over axes (an integer matmul has no BLAS: 3x slower)
+            base += off[:, i] * stride[i]
         return np.asarray(base[body] + (bits @ stride)[pattern], dtype=np.int64), True
     return _hash_keys(c_lo[body] + bits[pattern]), False
 
@@ -351,7 +367,7 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
     N, n = lo.shape
     if N < 2:
         return _empty_pairs()
-    sweep = int(np.argmax(np.var(lo + hi, axis=0)))
+    sweep = _widest_axis(lo, hi)
     grid = np.array([i for i in range(n) if i != sweep], dtype=np.int64)
     m = grid.size
     glo, ghi = lo[:, grid], hi[:, grid]
@@ -371,7 +387,10 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
         # measured 0.10 ms against 0.58 ms for kind="stable" on 10k floats
         ranked = small[np.argsort(lo[small, sweep])]  # small boxes by sweep lower bound
         bits = (np.arange(1 << m)[:, None] >> np.arange(m)[None, :]) & 1  # (2^m, m) offset patterns
-        two = span2[ranked] @ (1 << np.arange(m))  # grid axes on which the box covers 2 cells
+        sr = span2[ranked]
+        two = np.zeros(S, dtype=np.int64)  # grid axes on which the box covers 2 cells, as bits
+        for ax in range(m):  # loop over grid axes
+            two |= sr[:, ax] << ax
         ok = (np.arange(1 << m)[None, :] & ~two[:, None]) == 0
         owner, pattern = np.nonzero(ok)  # owner = sweep rank; entries come out in rank order
         key, exact = _cell_keys(c_lo[ranked], owner, pattern, bits)
@@ -412,7 +431,7 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
             out.append(np.stack([a[keep], j[keep]], axis=1))
     if not out:
         return _empty_pairs()
-    return np.concatenate(out).astype(np.int64)
+    return (out[0] if len(out) == 1 else np.concatenate(out)).astype(np.int64, copy=False)
 
 
 def _sorted_unique_pairs(a: IntArray, b: IntArray, N: int) -> IntArray:
