@@ -617,12 +617,168 @@ def _finish_polytope(kind: str, topo: _Topology, handles: NDArray[np.int64], pie
         key2 = np.where(valid, _pseudo_angle(d[..., 0], d[..., 1]), np.inf)
         order = np.argsort(key2, axis=1, kind="stable")
         outline = np.take_along_axis(np.where(valid, np.arange(pts.shape[1]), -1), order, axis=1)
+    return _batch(kind, handles, piece, pts, valid, faces, bi, fi, nrm, outline)
+
+
+def _batch(kind: str, handles: NDArray[np.int64], piece: int, pts: Array, valid: BoolArray, faces: IntArray,
+           bi: IntArray, fi: IntArray, nrm: Array, outline: IntArray | None) -> SectionBatch:
+    """The :class:`SectionBatch` of a polytope batch, with the mean of each section's vertices."""
     cnt = np.maximum(valid.sum(axis=1), 1)[:, None]
     centres = np.matmul(valid[:, None, :].astype(np.float64), pts)[:, 0] / cnt
     hit = np.asarray(valid.any(axis=1))
     return SectionBatch(kind=kind, handles=handles, piece=piece, hit=hit, points=pts, valid=valid,
                         faces=faces, face_body=bi, face_facet=fi, face_normals=nrm, outline=outline,
-                        centres=centres, radii=np.zeros(B))
+                        centres=centres, radii=np.zeros(pts.shape[0]))
+
+
+# ---------------------------------------------------------------------------------------------
+# Cut-pattern tables (4-D polytopes cut by a hyperplane, the common case of a 4-D game)
+# ---------------------------------------------------------------------------------------------
+
+# A hyperplane through no vertex cuts a facet (a 3-polytope) in a convex polygon whose corners are
+# the facet's crossing edges; two corners are consecutive exactly when their edges share a 2-face
+# of the facet. So the polygon's cyclic order is a function of the facet's sign pattern (which of
+# its vertices lie on the positive side), and can be tabulated once per combinatorial type: the
+# per-frame work becomes a lookup plus one orientation test per face, instead of projecting and
+# sorting every face's points. Facets with more than _PATTERN_MAX_VERTS vertices (2^V patterns
+# each) use the geometric ordering.
+_PATTERN_MAX_VERTS = 10
+
+
+@dataclass(frozen=True)
+class _PatternTable:
+    """Section polygons of every facet for every sign pattern of its vertices.
+
+    weights: (V, F) float, 2^i at (vertex, facet) for the facet's i-th vertex: posT @ weights is the
+    pattern code of each facet. count: (F * P,) int, crossing edges of the pattern (-1: a pattern no
+    hyperplane realises). order: (F * P * 2, W) int candidate indices of the polygon, cyclic order,
+    -1 padded; row 2 r + 1 is row 2 r reversed. tri: (F * P, 3) int, three well-spread corners
+    (positions 0, c // 3, 2 c // 3) for the orientation test.
+    """
+
+    weights: Array
+    patterns: int
+    count: IntArray
+    order: IntArray
+    tri: IntArray
+
+
+_PATTERNS: weakref.WeakKeyDictionary[Shape, _PatternTable | None] = weakref.WeakKeyDictionary()
+_PATTERNS_BY_TYPE: dict[tuple[bytes, ...], _PatternTable | None] = {}
+
+
+def _pattern_table(shape: Shape, topo: _Topology) -> _PatternTable | None:
+    """The cut-pattern table of a 4-D ConvexPolytope (None for other shapes or too-large facets)."""
+    if shape in _PATTERNS:
+        return _PATTERNS[shape]
+    table = None
+    if isinstance(shape, ConvexPolytope) and shape.dim == 4:
+        ridges = [np.asarray(r, dtype=np.intp) for r in shape.faces(2)]
+        key = (topo.edges.tobytes(), topo.face_cand.tobytes(), np.concatenate(ridges).tobytes(),
+               np.array([len(r) for r in ridges]).tobytes(), bytes([len(topo.vertices) % 256]))
+        if key not in _PATTERNS_BY_TYPE:
+            _PATTERNS_BY_TYPE[key] = _build_pattern_table(topo, ridges)
+        table = _PATTERNS_BY_TYPE[key]
+    _PATTERNS[shape] = table
+    return table
+
+
+def _facet_cycle(bits: int, fv: IntArray, fe: list[tuple[int, int, int]],
+                 ridge_edges: list[list[int]]) -> list[int] | None:
+    """Cyclic order of the crossing edges (candidate ids) of one pattern; None if unrealisable."""
+    pos = {int(v) for i, v in enumerate(fv) if (bits >> i) & 1}
+    crossing = {cid for cid, a, b in fe if (a in pos) != (b in pos)}
+    if not crossing:
+        return []
+    adj: dict[int, list[int]] = {e: [] for e in crossing}
+    for re in ridge_edges:
+        hit = [e for e in re if e in crossing]
+        if len(hit) == 2:
+            adj[hit[0]].append(hit[1])
+            adj[hit[1]].append(hit[0])
+        elif hit:
+            return None
+    if any(len(a) != 2 for a in adj.values()):
+        return None
+    start = min(crossing)
+    order, prev, cur = [start], -1, start
+    while True:  # walk the cycle: a handful of steps
+        a, b = adj[cur]
+        prev, cur = cur, (b if a == prev else a)
+        if cur == start:
+            break
+        order.append(cur)
+        if len(order) > len(crossing):
+            return None
+    return order if len(order) == len(crossing) else None
+
+
+def _build_pattern_table(topo: _Topology, ridges: list[IntArray]) -> _PatternTable | None:
+    nv = len(topo.vertices)
+    facet_verts = [np.sort(r[r < nv]) for r in topo.face_cand]
+    Vmax = max(len(f) for f in facet_verts)
+    if Vmax > _PATTERN_MAX_VERTS:
+        return None
+    P = 1 << Vmax
+    F = len(facet_verts)
+    weights = np.zeros((nv, F))
+    cycles: list[list[int] | None] = []
+    for f, fv in enumerate(facet_verts):  # cold: once per combinatorial type
+        weights[fv, f] = 2.0 ** np.arange(len(fv))
+        cand = topo.face_cand[f]
+        fe = [(int(c), int(topo.edges[c - nv, 0]), int(topo.edges[c - nv, 1])) for c in cand if c >= nv]
+        fset = set(fv.tolist())
+        ridge_edges = []
+        for r in ridges:
+            rs = set(r.tolist())
+            if rs <= fset:
+                ridge_edges.append([cid for cid, a, b in fe if a in rs and b in rs])
+        for bits in range(P):
+            cycles.append(_facet_cycle(bits, fv, fe, ridge_edges) if bits < (1 << len(fv)) else [])
+    W = max([len(c) for c in cycles if c] + [3])
+    count = np.array([-1 if c is None else len(c) for c in cycles], dtype=np.intp)
+    order = np.full((len(cycles), 2, W), -1, dtype=np.intp)
+    tri = np.zeros((len(cycles), 3), dtype=np.intp)
+    for i, c in enumerate(cycles):  # cold
+        if c:
+            order[i, 0, : len(c)] = c
+            order[i, 1, : len(c)] = c[::-1]
+            k = len(c)
+            tri[i] = [c[0], c[k // 3], c[(2 * k) // 3]]
+    return _PatternTable(weights, P, count, order.reshape(-1, W), tri)
+
+
+def _pattern_faces(table: _PatternTable, pos: BoolArray, pts: Array, fn: Array, fnorm: Array, m: int
+                   ) -> tuple[IntArray, IntArray, Array, IntArray] | None:
+    """Faces of a batch cut through no vertex, by table lookup: (rows, faces, normals, width).
+
+    pos (V, B) vertices on the positive side; pts (B, J, m); fn (B, F, m) projected facet normals
+    and fnorm (B, F) their lengths. Returns rows (G,) = b * F + f, faces (G, W) ordered
+    counter-clockwise around the normals (G, m); None when a pattern is not in the table (then the
+    caller orders geometrically).
+    """
+    B, J = pts.shape[:2]
+    F = fn.shape[1]
+    code = (pos.T.astype(np.float64) @ table.weights).astype(np.intp)  # (B, F) exact small integers
+    code += np.arange(F) * table.patterns
+    cnt = table.count[code]
+    if (cnt < 0).any():
+        return None
+    keep = (cnt >= m) & (fnorm > 1e-9)
+    rows = np.flatnonzero(keep)
+    bi = rows // F
+    rc = code.ravel()[rows]
+    nrm = np.take(fn.reshape(B * F, m), rows, axis=0) / fnorm.ravel()[rows, None]
+    # orientation: corners q0, q1, q2 in the tabulated order; reverse where (q1-q0)x(q2-q0) . n < 0
+    flat_pts = pts.reshape(B * J, m)
+    q = np.take(flat_pts, (bi * J)[:, None] + np.take(table.tri, rc, axis=0), axis=0)  # (G, 3, 3)
+    u, v = q[:, 1] - q[:, 0], q[:, 2] - q[:, 0]
+    det = (nrm[:, 0] * (u[:, 1] * v[:, 2] - u[:, 2] * v[:, 1])
+           + nrm[:, 1] * (u[:, 2] * v[:, 0] - u[:, 0] * v[:, 2])
+           + nrm[:, 2] * (u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]))
+    faces = np.take(table.order, 2 * rc + (det < 0.0), axis=0)
+    width = int(cnt.ravel()[rows].max()) if rows.size else 0
+    return rows, faces[:, :width], nrm, bi
 
 
 def _slice_polytope(shape: Shape, t: Array, M: Array, flat: Flat, handles: NDArray[np.int64],
@@ -672,6 +828,13 @@ def _slice_polytope(shape: Shape, t: Array, M: Array, flat: Flat, handles: NDArr
         pts[:, nv:] = epts.transpose(1, 0, 2)
         valid = np.concatenate([on, cross]).T
         has_on = bool(on.any())
+        if m == 3 and not has_on:
+            table = _pattern_table(shape, topo)
+            fnorm = np.sqrt(np.einsum("bfm,bfm->bf", fn, fn))
+            got = _pattern_faces(table, pos, pts, fn, fnorm, m) if table is not None else None
+            if got is not None:
+                rows, faces, nrm, bi = got
+                return _batch(kind, handles, piece, pts, valid, faces, bi, rows % F, nrm, None)
         # a cut through no vertex needs only the edge candidates of each facet (smaller masks)
         cand, cflat, cok = topo.cand_tables if has_on else topo.edge_cand_tables
         face_mask = np.take(valid, cflat, axis=1).reshape(B, *cand.shape)
