@@ -18,15 +18,26 @@ Invariants and choices:
   (H, N) vectorised test, with every body whose fattened box reaches its fattened plane (the
   box's lowest point along the world normal, centre . u - |u| . e, lies below the plane).
 * Candidate pairs come from :func:`grid_pairs`: a uniform grid over n - 1 axes with an exact
-  sweep along the axis of largest spread inside each cell (all vectorised: one packed integer
-  sort, one ``searchsorted``, no Python loop). A pure one-axis sweep-and-prune
+  sweep along the axis of largest spread inside each cell (vectorised: one packed integer sort,
+  then the in-cell runs walked one offset at a time, a loop over run lengths, never over bodies
+  or pairs). A pure one-axis sweep-and-prune
   (:func:`sweep_and_prune_pairs`) is kept for measurement: it must enumerate every pair whose
   intervals overlap on the sorted axis, a fraction (w/L) of all pairs where the true pairs are a
   fraction (w/L)^n, so in 4-D it meets hundreds of candidates per body. A full n-axis grid meets
   about 2^n candidates per true pair; sweeping one of the axes halves that. Measured on 10,000
-  moving 4-D balls and boxes (22,000 pairs; ``python -m ndrigid.bench.collision``, 2-core machine
-  shared with other jobs): ``update_pairs`` 14.7 ms median (grid 11.5 ms, boxes 1.5 ms);
-  sweep-and-prune 290 ms; a full 4-axis grid (the first version) 22 ms for the grid alone.
+  moving 4-D balls and boxes (22,000 pairs; ``python -m ndrigid.bench.collision``, one core of a
+  2-core machine shared with other jobs, so figures drift by +-20 % between runs):
+  ``update_pairs`` 9.0-9.7 ms median (grid 6.9-7.3 ms, boxes 1.1 ms); sweep-and-prune 236 ms; a
+  full 4-axis grid (the first version) 22 ms for the grid alone. The previous grid (a
+  ``searchsorted`` of every run end, a repeat-based run expansion, boolean-mask compaction) gave
+  ``update_pairs`` 14.1 ms (grid 11.2 ms) in the same session; run side by side on the same
+  boxes the new one takes 0.68 of its time. Where the time went, by line profile: boolean-mask
+  indexing ``a[m]`` with an unpredictable mask (4.5 times a ``flatnonzero`` and integer gather),
+  the unsorted-needle ``searchsorted`` (2.5 ms on 43k entries), ``np.var`` and
+  ``np.linalg.norm`` on short rows, and ``argsort(kind="stable")`` (0.58 ms against 0.10 ms).
+  Tried and kept out: int32 indices (gathers with them cost 2.5 times more: numpy converts them),
+  a larger or smaller grid cell (1.7-2.0 times the median box: no faster; below the largest box
+  the dense path floods).
 * Grid cell: the largest box size over the grid axes not above 2.5 times the median, so a box
   covers 1 or 2 cells per axis and its cells are an offset bit pattern; a body spanning more than
   2 cells (much larger than the rest) is tested against all boxes directly (dense, chunked), so
@@ -260,8 +271,9 @@ def _cell_runs(group: IntArray, slo: Array, shi: Array, pattern: NDArray[Any]) -
     is <= ``shi[i]``. The runs are walked together, one offset k per pass over the still-open
     entries (a loop over run lengths, a few tens at most: 19 passes on the benchmark), emitting
     (i, i + k) where the two offset patterns are disjoint (the corner-cell rule). Measured on the
-    benchmark's 43k entries: 1.8 ms, against 4.1 ms for a ``searchsorted`` of every run's end
-    (its needles are unsorted) plus an expansion with :func:`_runs` and a corner mask.
+    benchmark's 43k entries: 1.8 ms, where the previous route took 1.4 ms (line profile) for a
+    ``searchsorted`` of every run's end (its needles are unsorted), 1.7 ms for the expansion with
+    :func:`_runs`, and about 2 ms more for the corner mask and its boolean-mask compaction.
     """
     T = group.size
     lpad = np.append(slo, np.inf)  # a sentinel ends the last run
@@ -338,8 +350,8 @@ def _cell_keys(c_lo: IntArray, body: IntArray, pattern: IntArray, bits: IntArray
     if float(np.prod(extent.astype(np.float64))) < 2.0**62:
         stride = np.concatenate([[1], np.cumprod(extent[:-1])]).astype(np.int64)
         off = c_lo - cmin
-        base = off[:, 0] * stride[0]
-        for i in range(1, off.shape[1]):  # loop over axes (an integer matmul has no BLAS: 3x slower)
+        base = np.zeros(off.shape[0], dtype=np.int64)
+        for i in range(off.shape[1]):  # loop over axes (an integer matmul has no BLAS: 3x slower)
             base += off[:, i] * stride[i]
         return np.asarray(base[body] + (bits @ stride)[pattern], dtype=np.int64), True
     return _hash_keys(c_lo[body] + bits[pattern]), False
@@ -353,8 +365,9 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
     axis: its cells are ``c_lo + o`` for the offset bit patterns o in {0, 1}^(n-1) allowed by its
     span (a loop-free (N, 2^(n-1)) mask). Inside a cell the entries are ordered by their lower bound
     on the sweep axis, so the partners of an entry that overlap it on that axis are the run of
-    following entries whose rank is below its ``searchsorted`` bound: an exact integer search on
-    the composite key (cell group, rank). A pair is reported in its corner cell
+    following entries of its cell whose lower bound is <= its upper bound (:func:`_cell_runs`; the
+    same float comparison as the brute-force test, so the pair set is exact). A pair is reported
+    in its corner cell
     ``max(c_lo_a, c_lo_b)`` only, i.e. where no axis has both offsets 1: ``o_a & o_b == 0``. Boxes
     spanning more than 2 cells on some grid axis (much larger than the rest) are tested against
     every box directly.
