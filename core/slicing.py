@@ -665,6 +665,8 @@ class _PatternTable:
 
 _PATTERNS: weakref.WeakKeyDictionary[Shape, _PatternTable | None] = weakref.WeakKeyDictionary()
 _PATTERNS_BY_TYPE: dict[tuple[bytes, ...], _PatternTable | None] = {}
+# per shape, not per type: a mirror image has the same combinatorics and the opposite orientations
+_ORIENT: weakref.WeakKeyDictionary[Shape, NDArray[np.int8]] = weakref.WeakKeyDictionary()
 
 
 def _pattern_table(shape: Shape, topo: _Topology) -> _PatternTable | None:
@@ -748,17 +750,20 @@ def _build_pattern_table(topo: _Topology, ridges: list[IntArray]) -> _PatternTab
     return _PatternTable(weights, P, count, order.reshape(-1, W), tri)
 
 
-def _pattern_faces(table: _PatternTable, pos: BoolArray, pts: Array, fn: Array, fnorm: Array, m: int
+def _pattern_faces(table: _PatternTable, orient: NDArray[np.int8], sigma: int, size: float, pos: BoolArray,
+                   pts: Array, fnT: Array, fnorm: Array, m: int
                    ) -> tuple[IntArray, IntArray, Array, IntArray] | None:
-    """Faces of a batch cut through no vertex, by table lookup: (rows, faces, normals, width).
+    """Faces of a batch cut through no vertex, by table lookup: (rows, faces, normals, face_body).
 
-    pos (V, B) vertices on the positive side; pts (B, J, m); fn (B, F, m) projected facet normals
-    and fnorm (B, F) their lengths. Returns rows (G,) = b * F + f, faces (G, W) ordered
-    counter-clockwise around the normals (G, m); None when a pattern is not in the table (then the
-    caller orders geometrically).
+    orient (F * P,) int8 the shape's remembered orientations (0: not seen yet; updated in place);
+    sigma +-1 the sign of det[frame; normals] of the flat; size the shape's scale; pos (V, B) the
+    vertices on the positive side; pts (B, J, m); fnT (F, B, m) projected facet normals and fnorm
+    (B, F) their lengths. Returns rows (G,) = b * F + f, faces (G, W) ordered counter-clockwise
+    around the normals (G, m), and b (G,); None when a pattern is not in the table (then the caller
+    orders geometrically).
     """
     B, J = pts.shape[:2]
-    F = fn.shape[1]
+    F = fnT.shape[0]
     code = (pos.T.astype(np.float64) @ table.weights).astype(np.intp)  # (B, F) exact small integers
     code += np.arange(F) * table.patterns
     cnt = table.count[code]
@@ -768,15 +773,27 @@ def _pattern_faces(table: _PatternTable, pos: BoolArray, pts: Array, fn: Array, 
     rows = np.flatnonzero(keep)
     bi = rows // F
     rc = code.ravel()[rows]
-    nrm = np.take(fn.reshape(B * F, m), rows, axis=0) / fnorm.ravel()[rows, None]
-    # orientation: corners q0, q1, q2 in the tabulated order; reverse where (q1-q0)x(q2-q0) . n < 0
-    flat_pts = pts.reshape(B * J, m)
-    q = np.take(flat_pts, (bi * J)[:, None] + np.take(table.tri, rc, axis=0), axis=0)  # (G, 3, 3)
-    u, v = q[:, 1] - q[:, 0], q[:, 2] - q[:, 0]
-    det = (nrm[:, 0] * (u[:, 1] * v[:, 2] - u[:, 2] * v[:, 1])
-           + nrm[:, 1] * (u[:, 2] * v[:, 0] - u[:, 0] * v[:, 2])
-           + nrm[:, 2] * (u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]))
-    faces = np.take(table.order, 2 * rc + (det < 0.0), axis=0)
+    nrm = np.take(fnT.reshape(F * B, m), (rows - bi * F) * B + bi, axis=0) / fnorm.ravel()[rows, None]
+    # Orientation. Whether the tabulated order runs counter-clockwise around the normal is, for one
+    # shape, a constant of (facet, pattern) times the handedness sigma of the flat's basis: it is the
+    # sign of sigma det[q1 - q0, q2 - q0, n_f, u] in local coordinates, which cannot vanish while the
+    # hyperplane (u, d) moves in the convex cone realising the pattern (no three corners of the
+    # strictly convex section are collinear there). So it is measured once per (facet, pattern) on a
+    # face that is far from degenerate and remembered; other faces of unseen patterns are measured.
+    o = orient[rc]
+    need = np.flatnonzero(o == 0)
+    if need.size:
+        tri = np.take(table.tri, rc[need], axis=0) + (bi[need] * J)[:, None]
+        q = np.take(pts.reshape(B * J, m), tri, axis=0)  # (G', 3, 3) corners q0, q1, q2
+        u, v, nn = q[:, 1] - q[:, 0], q[:, 2] - q[:, 0], nrm[need]
+        det = (nn[:, 0] * (u[:, 1] * v[:, 2] - u[:, 2] * v[:, 1])
+               + nn[:, 1] * (u[:, 2] * v[:, 0] - u[:, 0] * v[:, 2])
+               + nn[:, 2] * (u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]))
+        got = np.where(det > 0.0, sigma, -sigma).astype(np.int8)  # orientation for sigma = +1
+        sure = np.abs(det) > 1e-6 * size * size
+        orient[rc[need[sure]]] = got[sure]
+        o[need] = got
+    faces = np.take(table.order, 2 * rc + (o * sigma < 0), axis=0)
     width = int(cnt.ravel()[rows].max()) if rows.size else 0
     return rows, faces[:, :width], nrm, bi
 
@@ -792,8 +809,11 @@ def _slice_polytope(shape: Shape, t: Array, M: Array, flat: Flat, handles: NDArr
     off = (t - flat.point) @ flat.frame.T  # slice coordinates of the body origin (B, m)
     # one GEMM for all bodies: (V, n) @ (n, B*m), instead of a batched einsum (measured ~5x faster)
     At = A.transpose(2, 0, 1).reshape(n, B * m)
-    vpts = (V @ At).reshape(len(V), B, m).transpose(1, 0, 2) + off[:, None, :]  # (B, V, m)
-    fn = (topo.face_normals @ At).reshape(-1, B, m).transpose(1, 0, 2)  # projected facet normals (B, F, m)
+    vT = (V @ At).reshape(len(V), B, m)
+    vT += off
+    vpts = vT.transpose(1, 0, 2)  # (B, V, m)
+    fnT = (topo.face_normals @ At).reshape(-1, B, m)
+    fn = fnT.transpose(1, 0, 2)  # projected facet normals (B, F, m)
     F, K = topo.face_cand.shape
     if topo.mode == "vertices":
         valid = np.ones((B, len(V)), dtype=bool)
@@ -803,35 +823,46 @@ def _slice_polytope(shape: Shape, t: Array, M: Array, flat: Flat, handles: NDArr
     Ul = np.matmul(flat.normals, M)  # flat normals in local coordinates (B, c, n)
     d = (flat.point - t) @ flat.normals.T  # flat offsets in local coordinates (B, c)
     if topo.mode == "edges":
-        # candidate-major layout (V, B) / (E, B, m) for the per-edge work: a take of edge ends along
-        # the first axis copies whole contiguous rows (measured ~9x cheaper than pts[:, ea]); the
-        # arithmetic runs in place, because fresh temporaries of ~1 MB cost page faults on every call
+        # Signed distances and crossings in vertex-major layout (V, B), (E, B): taking edge ends along
+        # the first axis copies whole contiguous rows (measured ~9x cheaper than s[:, ea]). Every edge
+        # candidate first gets its first end (w = 0, as for an edge the flat does not cross); only the
+        # crossing ones (~1/4 of them in a random scene) are interpolated, by flat indices.
         nv, (ea, eb) = len(V), topo.edge_ends
-        E = len(ea)
+        J = nv + len(ea)
         sT = V @ Ul[:, 0].T
         sT -= d[:, 0]  # signed vertex distances (V, B)
         pos, neg = sT > tol, sT < -tol
         on = ~(pos | neg)
         cross = (pos[ea] & neg[eb]) | (neg[ea] & pos[eb])  # (E, B)
-        sa = sT[ea]
-        w = np.zeros((E, B))
-        np.divide(sa, sa - sT[eb], out=w, where=cross)  # in (0, 1) where crossing, else 0
-        vT = (V @ At).reshape(nv, B, m)
-        vT += off
-        pa = vT[ea]
-        epts = vT[eb]
-        epts -= pa
-        epts *= w[..., None]
-        epts += pa
-        pts = np.empty((B, nv + E, m))
+        pts = np.empty((B, J, m))
         pts[:, :nv] = vT.transpose(1, 0, 2)
-        pts[:, nv:] = epts.transpose(1, 0, 2)
+        pts[:, nv:] = vT[ea].transpose(1, 0, 2)
+        ci = np.flatnonzero(cross)
+        ce = ci // B
+        cb = ci - ce * B
+        ia, ib = ea[ce] * B + cb, eb[ce] * B + cb
+        sf = sT.ravel()
+        sa = sf[ia]
+        w = sa / (sa - sf[ib])  # in (0, 1)
+        vf = vT.reshape(nv * B, m)
+        pa = np.take(vf, ia, axis=0)
+        pb = np.take(vf, ib, axis=0)
+        pb -= pa
+        pb *= w[:, None]
+        pb += pa
+        pts.reshape(B * J, m)[cb * J + nv + ce] = pb
         valid = np.concatenate([on, cross]).T
         has_on = bool(on.any())
         if m == 3 and not has_on:
             table = _pattern_table(shape, topo)
             fnorm = np.sqrt(np.einsum("bfm,bfm->bf", fn, fn))
-            got = _pattern_faces(table, pos, pts, fn, fnorm, m) if table is not None else None
+            got = None
+            if table is not None:
+                orient = _ORIENT.get(shape)
+                if orient is None:
+                    orient = _ORIENT[shape] = np.zeros(len(table.count), dtype=np.int8)
+                sigma = 1 if np.linalg.det(np.concatenate([flat.frame, flat.normals])) > 0.0 else -1
+                got = _pattern_faces(table, orient, sigma, max(topo.size, 1e-300), pos, pts, fnT, fnorm, m)
             if got is not None:
                 rows, faces, nrm, bi = got
                 return _batch(kind, handles, piece, pts, valid, faces, bi, rows % F, nrm, None)
