@@ -339,22 +339,21 @@ def _hash_keys(c: IntArray) -> IntArray:
     return h.view(np.int64)
 
 
-def _cell_keys(c_lo: IntArray, body: IntArray, pattern: IntArray, bits: IntArray) -> tuple[IntArray, bool]:
-    """Keys (T,) of the cells ``c_lo[body] + bits[pattern]``, and whether they are exact.
+def _cell_keys(c_lo: IntArray, body: IntArray, pattern: IntArray, bits: IntArray) -> IntArray:
+    """Keys (T,) of the cells ``c_lo[body] + bits[pattern]`` (``c_lo`` (S, m) int), for cell
+    ranges too wide for :func:`grid_pairs`'s packed sort.
 
     Exact keys are mixed-radix integers in [0, prod(extent)) (a base per body plus a constant per
-    offset pattern) when the occupied cell range fits; otherwise hashes of the coordinates.
+    offset pattern) when the occupied cell range fits in 62 bits; otherwise hashes of the
+    coordinates (a collision costs a wasted candidate, or a duplicate the final sort drops).
     """
     cmin = c_lo.min(axis=0)
     extent = c_lo.max(axis=0) - cmin + 2
     if float(np.prod(extent.astype(np.float64))) < 2.0**62:
         stride = np.concatenate([[1], np.cumprod(extent[:-1])]).astype(np.int64)
-        off = c_lo - cmin
-        base = np.zeros(off.shape[0], dtype=np.int64)
-        for i in range(off.shape[1]):  # loop over axes (an integer matmul has no BLAS: 3x slower)
-            base += off[:, i] * stride[i]
-        return np.asarray(base[body] + (bits @ stride)[pattern], dtype=np.int64), True
-    return _hash_keys(c_lo[body] + bits[pattern]), False
+        base = (c_lo - cmin) @ stride
+        return np.asarray(base[body] + (bits @ stride)[pattern], dtype=np.int64)
+    return _hash_keys(c_lo[body] + bits[pattern])
 
 
 def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
@@ -383,39 +382,58 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
     sweep = _widest_axis(lo, hi)
     grid = np.array([i for i in range(n) if i != sweep], dtype=np.int64)
     m = grid.size
-    glo, ghi = lo[:, grid], hi[:, grid]
-    size = (ghi - glo).max(axis=1)
+    # axis-major (m, N) grid bounds: every per-axis pass below reads one contiguous row
+    loT, hiT = np.ascontiguousarray(lo.T[grid]), np.ascontiguousarray(hi.T[grid])
+    size = (hiT - loT).max(axis=0)
     if cell is None:
         med = float(np.median(size))
         cell = float(np.max(size[size <= 2.5 * med]))
-    cell = max(cell, 1e-9 * max(1.0, float(np.max(np.abs(ghi)))))
-    c_lo = np.floor(glo / cell).astype(np.int64)
-    span2 = np.floor(ghi / cell).astype(np.int64) - c_lo  # 0 or 1 for small boxes
-    big = np.any(span2 > 1, axis=1)
+    cell = max(cell, 1e-9 * max(1.0, float(np.max(np.abs(hiT)))))
+    c_lo = np.floor(loT / cell).astype(np.int64)  # (m, N)
+    span2 = np.floor(hiT / cell).astype(np.int64) - c_lo  # 0 or 1 for small boxes
+    big = np.any(span2 > 1, axis=0)
     out = []
     small = np.flatnonzero(~big)
     if small.size > 1:
         S = small.size
+        P = 1 << m
         # default (unstable) sort: ties may fall either way, the pair set does not depend on it;
         # measured 0.10 ms against 0.58 ms for kind="stable" on 10k floats
         ranked = small[np.argsort(lo[small, sweep])]  # small boxes by sweep lower bound
-        bits = (np.arange(1 << m)[:, None] >> np.arange(m)[None, :]) & 1  # (2^m, m) offset patterns
-        sr = span2[ranked]
+        bits = (np.arange(P)[:, None] >> np.arange(m)[None, :]) & 1  # (2^m, m) offset patterns
+        cr = np.take(c_lo, ranked, axis=1)  # (m, S) lower cells by sweep rank
+        sr = np.take(span2, ranked, axis=1)
         two = np.zeros(S, dtype=np.int64)  # grid axes on which the box covers 2 cells, as bits
         for ax in range(m):  # loop over grid axes
-            two |= sr[:, ax] << ax
-        ok = (np.arange(1 << m)[None, :] & ~two[:, None]) == 0
-        owner, pattern = np.nonzero(ok)  # owner = sweep rank; entries come out in rank order
-        key, exact = _cell_keys(c_lo[ranked], owner, pattern, bits)
+            two |= sr[ax] << ax
+        cmin = cr.min(axis=1)
+        extent = cr.max(axis=1) - cmin + 2
         sb = max(1, int(S - 1).bit_length())  # rank bits
-        if exact and float(key.max() + 1) * float(1 << (sb + m)) < 2.0**62:
-            # one plain integer sort of (cell, rank, pattern) packed in an int64 with shifts and
-            # masks (cheaper than a stable argsort plus three gathers, or integer division)
-            packed = np.sort((((key << sb) | owner) << m) | pattern)
-            pattern = packed & ((1 << m) - 1)
+        shift = sb + m
+        room = float(np.prod(extent.astype(np.float64)))  # exact cell keys lie in [0, room)
+        if room * float(1 << shift) < 2.0**62:
+            # exact mixed-radix cell keys, packed with (rank, pattern) into one int64 and sorted
+            # plainly (cheaper than a stable argsort plus gathers). The packed entry of (rank r,
+            # pattern o) is head[r] + tail[o]: the fields do not carry into each other, so each
+            # pattern's entries are one gather of head plus a constant (no (S, 2^m) mask, no
+            # nonzero, no per-entry shifts); a loop over the 2^m patterns.
+            stride = np.concatenate([[1], np.cumprod(extent[:-1])]).astype(np.int64)
+            base = np.zeros(S, dtype=np.int64)
+            for ax in range(m):  # loop over grid axes (an integer matmul has no BLAS: 3x slower)
+                base += (cr[ax] - cmin[ax]) * stride[ax]
+            head = (base << shift) | (np.arange(S, dtype=np.int64) << m)
+            tail = ((bits @ stride) << shift) | np.arange(P)
+            parts = [head + tail[0]]
+            for o in range(1, P):  # loop over offset patterns
+                parts.append(head[np.flatnonzero((two & o) == o)] + tail[o])
+            packed = np.sort(np.concatenate(parts))
+            pattern = packed & (P - 1)
             rank = (packed >> m) & ((1 << sb) - 1)
-            group = packed >> (sb + m)
+            group = packed >> shift
         else:
+            ok = (np.arange(P)[None, :] & ~two[:, None]) == 0
+            owner, pattern = np.nonzero(ok)  # owner = sweep rank; entries come out in rank order
+            key = _cell_keys(np.ascontiguousarray(cr.T), owner, pattern, bits)
             order = np.argsort(key, kind="stable")  # by cell, and by sweep rank within a cell
             ks = key[order]
             rank = owner[order]
@@ -428,7 +446,6 @@ def grid_pairs(lo: Array, hi: Array, cell: float | None = None) -> IntArray:
         i, j = _cell_runs(group, lo[body, sweep], hi[body, sweep], po)
         # the grid-axis test on entry indices (entry-ordered bounds: j is near i, and the body
         # gather is left to the survivors)
-        loT, hiT = np.ascontiguousarray(glo.T), np.ascontiguousarray(ghi.T)
         i, j = _overlapping(np.take(loT, body, axis=1), np.take(hiT, body, axis=1), i, j)
         a, b = body[i], body[j]
         out.append(np.stack([a, b], axis=1))
