@@ -27,17 +27,21 @@ Invariants and choices:
   about 2^n candidates per true pair; sweeping one of the axes halves that. Measured on 10,000
   moving 4-D balls and boxes (22,000 pairs; ``python -m ndrigid.bench.collision``, one core of a
   2-core machine shared with other jobs, so figures drift by +-20 % between runs):
-  ``update_pairs`` 9.0-9.7 ms median (grid 6.9-7.3 ms, boxes 1.1 ms); sweep-and-prune 236 ms; a
-  full 4-axis grid (the first version) 22 ms for the grid alone. The previous grid (a
-  ``searchsorted`` of every run end, a repeat-based run expansion, boolean-mask compaction) gave
-  ``update_pairs`` 14.1 ms (grid 11.2 ms) in the same session; run side by side on the same
-  boxes the new one takes 0.68 of its time. Where the time went, by line profile: boolean-mask
-  indexing ``a[m]`` with an unpredictable mask (4.5 times a ``flatnonzero`` and integer gather),
-  the unsorted-needle ``searchsorted`` (2.5 ms on 43k entries), ``np.var`` and
-  ``np.linalg.norm`` on short rows, and ``argsort(kind="stable")`` (0.58 ms against 0.10 ms).
-  Tried and kept out: int32 indices (gathers with them cost 2.5 times more: numpy converts them),
-  a larger or smaller grid cell (1.7-2.0 times the median box: no faster; below the largest box
-  the dense path floods).
+  ``update_pairs`` 8.6-9.0 ms median (grid 6.2-6.4 ms, boxes 1.2 ms); sweep-and-prune 240 ms; a
+  full 4-axis grid (the first version) 22 ms for the grid alone. ``python -m ndrigid.bench
+  broadphase --dim 4 --bodies 10000`` (a uniform cloud): ``update_pairs`` 7.6-8.2 ms. The
+  previous grid (a ``searchsorted`` of every run end, a repeat-based run expansion, boolean-mask
+  compaction, an (N, 2^m) entry mask) gave 14.1 ms (grid 11.2 ms) and 12.4 ms on the same two
+  benchmarks; run side by side in one process on the same boxes the new ``update_pairs`` takes
+  0.58 of its time in 4-D (0.59 in 2-D, 0.57 in 3-D, 0.65 in 5-D, 10,000 bodies each). Where the
+  time went, by line profile: boolean-mask indexing ``a[m]`` with an unpredictable mask (4.5
+  times a ``flatnonzero`` plus integer gathers), the unsorted-needle ``searchsorted`` (2.5 ms on
+  43k entries), ``np.var`` and ``np.linalg.norm`` on short rows, reductions over (N, 3) along
+  axis 0 (hence the axis-major (m, N) grid bounds), and ``argsort(kind="stable")`` (0.58 ms
+  against 0.10 ms). Tried and kept out: int32 indices (gathers with them cost 2.5 times more:
+  numpy converts them); another grid cell (default 1.6 m on the benchmark, median box 1.09 m:
+  1.7 and 1.8 m no faster, 2.0 m and 2.4 m slower; 1.3 m sends a fifth of the boxes to the dense
+  path, 82 ms).
 * Grid cell: the largest box size over the grid axes not above 2.5 times the median, so a box
   covers 1 or 2 cells per axis and its cells are an offset bit pattern; a body spanning more than
   2 cells (much larger than the rest) is tested against all boxes directly (dense, chunked), so
