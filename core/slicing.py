@@ -677,6 +677,7 @@ class _PatternTable:
 
 _PATTERNS: weakref.WeakKeyDictionary[Shape, _PatternTable | None] = weakref.WeakKeyDictionary()
 _PATTERNS_BY_TYPE: dict[tuple[bytes, ...], _PatternTable | None] = {}
+_PATTERN_TYPES_KEPT = 64  # tables shared by type (shapes keep theirs through _PATTERNS as long as they live)
 # per shape, not per type: a mirror image has the same combinatorics and the opposite orientations
 _ORIENT: weakref.WeakKeyDictionary[Shape, NDArray[np.int8]] = weakref.WeakKeyDictionary()
 
@@ -689,8 +690,10 @@ def _pattern_table(shape: Shape, topo: _Topology) -> _PatternTable | None:
     if isinstance(shape, ConvexPolytope) and shape.dim == 4:
         ridges = [np.asarray(r, dtype=np.intp) for r in shape.faces(2)]
         key = (topo.edges.tobytes(), topo.face_cand.tobytes(), np.concatenate(ridges).tobytes(),
-               np.array([len(r) for r in ridges]).tobytes(), bytes([len(topo.vertices) % 256]))
+               np.array([len(r) for r in ridges]).tobytes(), str(len(topo.vertices)).encode())
         if key not in _PATTERNS_BY_TYPE:
+            if len(_PATTERNS_BY_TYPE) >= _PATTERN_TYPES_KEPT:  # many one-off polytopes: forget the oldest
+                del _PATTERNS_BY_TYPE[next(iter(_PATTERNS_BY_TYPE))]
             _PATTERNS_BY_TYPE[key] = _build_pattern_table(topo, ridges)
         table = _PATTERNS_BY_TYPE[key]
     _PATTERNS[shape] = table
@@ -792,6 +795,7 @@ def _pattern_faces(table: _PatternTable, orient: NDArray[np.int8], sigma: int, s
     # hyperplane (u, d) moves in the convex cone realising the pattern (no three corners of the
     # strictly convex section are collinear there). So it is measured once per (facet, pattern) on a
     # face that is far from degenerate and remembered; other faces of unseen patterns are measured.
+    # (Concurrent callers may both measure an unseen entry; they write the same value.)
     o = orient[rc]
     need = np.flatnonzero(o == 0)
     if need.size:
