@@ -40,7 +40,7 @@ Invariants and choices:
   axis 0 (hence the axis-major (m, N) grid bounds), and ``argsort(kind="stable")`` (0.58 ms
   against 0.10 ms). Tried and kept out: int32 indices (gathers with them cost 2.5 times more:
   numpy converts them); another grid cell (default 1.6 m on the benchmark, median box 1.09 m:
-  1.7 and 1.8 m no faster, 2.0 m and 2.4 m slower; 1.3 m sends a fifth of the boxes to the dense
+  1.7 and 1.8 m no faster, 2.0 m and 2.4 m slower; 1.3 m sends 2.3 % of the boxes to the dense
   path, 82 ms).
 * Grid cell: the largest box size over the grid axes not above 2.5 times the median, so a box
   covers 1 or 2 cells per axis and its cells are an offset bit pattern; a body spanning more than
