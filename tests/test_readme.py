@@ -87,3 +87,23 @@ def test_readme_settings_table_matches_the_defaults() -> None:
                 assert float(token) == actual, (name, value, actual)
             else:
                 assert token == actual, (name, value, actual)
+
+
+def test_readme_esper_example_runs_and_the_plum_lands_in_the_basket() -> None:
+    """The esper section: the plum (radius 0.12) falls onto the basket box (top at y = 0.8) and
+    rests there, and the touch reaches game code as a CONTACT_BEGIN event (common practice:
+    a resting ball sits one radius above its support)."""
+    import esper
+
+    block = next(b for b in _python_blocks() if "PhysicsProcessor" in b)
+    previous = esper.current_world
+    esper.switch_world("readme-esper-example")
+    try:
+        ns: dict[str, object] = {}
+        exec(compile(block.replace("print(", "(lambda *a: None)("), "README", "exec"), ns)  # noqa: S102
+        t = ns["t"]
+        assert abs(t.position[1] - 0.92) < 0.02  # type: ignore[attr-defined]
+        assert ns["touches"]
+    finally:
+        esper.switch_world(previous)
+        esper.delete_world("readme-esper-example")
