@@ -530,30 +530,38 @@ class Simulation:
 
     # -- physical quantities ----------------------------------------------------------------------
 
-    def _dynamic_rows(self) -> NDArray[np.intp]:
-        return np.nonzero(self.bodies.kind == DYNAMIC)[0]
-
-    def kinetic_energy(self, handle: int | None = None) -> float:
-        """Kinetic energy (J) of one body or of all dynamic bodies: m v^2/2 + <w, I w>/2."""
+    def _counted_rows(self, handle: int | None) -> NDArray[np.intp]:
+        """Rows the physical quantities sum over: every dynamic body, or the one given (if dynamic)."""
         b = self.bodies
-        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
-        rows = rows[b.kind[rows] == DYNAMIC]
-        if rows.size == 0:
-            return 0.0
-        m = 1.0 / b.inv_mass[rows]
-        lin = 0.5 * np.sum(m * np.einsum("ni,ni->n", b.velocity[rows], b.velocity[rows]))
+        rows = np.nonzero(b.kind == DYNAMIC)[0] if handle is None else np.array([self.row(handle)])
+        return rows[b.kind[rows] == DYNAMIC]
+
+    def _spin(self, rows: NDArray[np.intp]) -> tuple[Array, Array, Array]:
+        """Body frames C (N, k, k), body angular velocities (N, k) and principal moments (N, k)
+        (0 for locked planes) of the given rows."""
+        b = self.bodies
         C = _integrate.body_frames(self.alg, b.rotor[rows], b.principal_rotor[rows])
         wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
         inv_i = b.inv_inertia[rows]
         inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)
+        return C, wb, inertia
+
+    def kinetic_energy(self, handle: int | None = None) -> float:
+        """Kinetic energy (J) of one body or of all dynamic bodies: m v^2/2 + <w, I w>/2."""
+        b = self.bodies
+        rows = self._counted_rows(handle)
+        if rows.size == 0:
+            return 0.0
+        m = 1.0 / b.inv_mass[rows]
+        lin = 0.5 * np.sum(m * np.einsum("ni,ni->n", b.velocity[rows], b.velocity[rows]))
+        _, wb, inertia = self._spin(rows)
         ang = 0.5 * np.sum(inertia * wb * wb)
         return float(lin + ang)
 
     def potential_energy(self, handle: int | None = None) -> float:
         """Gravitational potential energy (J), -m g . x_c, zero at the origin."""
         b = self.bodies
-        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
-        rows = rows[b.kind[rows] == DYNAMIC]
+        rows = self._counted_rows(handle)
         if rows.size == 0:
             return 0.0
         m = 1.0 / b.inv_mass[rows]
@@ -566,8 +574,7 @@ class Simulation:
     def linear_momentum(self, handle: int | None = None) -> Array:
         """Linear momentum (n,) of one body or of all dynamic bodies."""
         b = self.bodies
-        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
-        rows = rows[b.kind[rows] == DYNAMIC]
+        rows = self._counted_rows(handle)
         return np.sum((1.0 / b.inv_mass[rows])[:, None] * b.velocity[rows], axis=0) if rows.size else \
             np.zeros(self.dim)
 
@@ -577,8 +584,7 @@ class Simulation:
         ``about`` is "origin", "com" (the centre of mass of the bodies counted) or an (n,) point.
         """
         b = self.bodies
-        rows = self._dynamic_rows() if handle is None else np.array([self.row(handle)])
-        rows = rows[b.kind[rows] == DYNAMIC]
+        rows = self._counted_rows(handle)
         if rows.size == 0:
             return np.zeros(self.alg.k)
         m = 1.0 / b.inv_mass[rows]
@@ -592,10 +598,7 @@ class Simulation:
                 raise InputError(f"about: expected 'origin', 'com' or an (n,) point, got {about!r}")
         else:
             o = as_float_array("about", about, (self.dim,))
-        C = _integrate.body_frames(self.alg, b.rotor[rows], b.principal_rotor[rows])
-        wb = np.einsum("nji,nj->ni", C, b.angular_velocity[rows])
-        inv_i = b.inv_inertia[rows]
-        inertia = np.where(inv_i > 0, 1.0 / np.where(inv_i > 0, inv_i, 1.0), 0.0)
+        C, wb, inertia = self._spin(rows)
         spin = np.einsum("nij,nj->ni", C, inertia * wb)
         orbital = _wedge(self.alg, xc - o, m[:, None] * b.velocity[rows])
         return np.sum(spin + orbital, axis=0)
