@@ -95,6 +95,34 @@ def clip_segments(f0: Array, f1: Array) -> tuple[Array, Array, IntArray, IntArra
             np.where(clipped_out, plane_out, -1).astype(np.int64), ok)
 
 
+def _first_of_each_code(valid: BoolArray, codes: IntArray) -> BoolArray:
+    """``valid`` with every slot that repeats an earlier valid slot's code (same pair) cleared.
+
+    Invalid slots get distinct negative codes so that they never pair up with anything; the sort is
+    stable, so the first slot of each code is the one kept.
+    """
+    P, K = valid.shape
+    c = np.where(valid, codes, -1 - np.arange(K, dtype=np.int64)[None, :])
+    order = np.argsort(c, axis=1, kind="stable")
+    cs = np.take_along_axis(c, order, axis=1)
+    dup = np.zeros((P, K), dtype=bool)
+    dup[:, 1:] = cs[:, 1:] == cs[:, :-1]
+    out = valid.copy()
+    out[np.arange(P)[:, None], order] &= ~dup
+    return out
+
+
+def _compact(valid: BoolArray) -> tuple[IntArray | None, BoolArray]:
+    """Slot order with valid slots first, cut to the widest pair's count: ``(slot (P, W), valid
+    (P, W))``, or ``(None, valid)`` when no pair has a valid slot."""
+    slot = np.argsort(~valid, axis=1, kind="stable")
+    width = int(valid.sum(axis=1).max())
+    if width == 0:
+        return None, valid
+    slot = slot[:, :width]
+    return slot, np.take_along_axis(valid, slot, axis=1)
+
+
 def reduce_points(tangent: Array, depth: Array, valid: BoolArray, cap: int, tol: Array | float,
                   codes: IntArray | None = None) -> BoolArray:
     """Choose at most ``cap`` points per pair: the deepest, then farthest-point sampling.
@@ -117,22 +145,11 @@ def reduce_points(tangent: Array, depth: Array, valid: BoolArray, cap: int, tol:
     if P == 0 or K == 0:
         return keep
     rows = np.arange(P)
-    valid = valid.copy()
-    if codes is not None:
-        # invalid slots get distinct negative codes so that they never pair up with anything
-        c = np.where(valid, codes, -1 - np.arange(K, dtype=np.int64)[None, :])
-        order = np.argsort(c, axis=1, kind="stable")
-        cs = np.take_along_axis(c, order, axis=1)
-        dup = np.zeros((P, K), dtype=bool)
-        dup[:, 1:] = cs[:, 1:] == cs[:, :-1]
-        valid[rows[:, None], order] &= ~dup
-    # compact: valid slots first, then drop the columns no pair uses
-    slot = np.argsort(~valid, axis=1, kind="stable")
-    width = int(valid.sum(axis=1).max())
-    if width == 0:
+    valid = valid.copy() if codes is None else _first_of_each_code(valid, codes)
+    slot, v = _compact(valid)
+    if slot is None:
         return keep
-    slot = slot[:, :width]
-    v = np.take_along_axis(valid, slot, axis=1)
+    width = slot.shape[1]
     t = np.take_along_axis(tangent, slot[..., None], axis=1)
     dp = np.take_along_axis(depth, slot, axis=1)
     pick = np.zeros((P, width), dtype=bool)
@@ -247,22 +264,12 @@ def select_points(tangent: Array, valid: BoolArray, codes: IntArray, cap: int, d
     if P == 0 or K == 0:
         return keep
     rows = np.arange(P)
-    big = np.iinfo(np.int64).max
-    # 1. duplicates of a code: keep the first slot of each (codes sorted per row, stable)
-    c = np.where(valid, codes, big)
-    order = np.argsort(c, axis=1, kind="stable")
-    cs = np.take_along_axis(c, order, axis=1)
-    dup = np.zeros((P, K), dtype=bool)
-    dup[:, 1:] = cs[:, 1:] == cs[:, :-1]
-    valid = valid.copy()
-    valid[rows[:, None], order] &= ~dup
-    # compact: valid slots first, drop the columns no pair uses
-    slot = np.argsort(~valid, axis=1, kind="stable")
-    width = int(valid.sum(axis=1).max())
-    if width == 0:
+    # 1. duplicates of a code: keep the first slot of each
+    valid = _first_of_each_code(valid, codes)
+    slot, v = _compact(valid)
+    if slot is None:
         return keep
-    slot = slot[:, :width]
-    v = np.take_along_axis(valid, slot, axis=1)
+    width = slot.shape[1]
     t = np.take_along_axis(tangent, slot[..., None], axis=1)
     cd = np.take_along_axis(codes, slot, axis=1)
     has: BoolArray = np.any(v, axis=1)
