@@ -69,8 +69,8 @@ def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0,
         if timed is None:
             step_ms.append(dt * 1e3)
         else:
-            step_ms.append(sum(sim.profile.stages.get(s, 0.0) for s in timed) * 1e3)
-        for name, sec in sim.profile.stages.items():
+            step_ms.append(sum(sim.timings.stages.get(s, 0.0) for s in timed) * 1e3)
+        for name, sec in sim.timings.stages.items():
             stage_ms[name].append(sec * 1e3)
         c = sim.contacts
         if c is not None and c.count:

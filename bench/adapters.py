@@ -9,7 +9,7 @@ A floor and ``bodies`` balls and boxes dropped in a loose grid, run through each
 
 Overhead is the wall time of the adapter's frame (``esper.process`` / ``PhysicsSystem.update``,
 plus the velocity assignments themselves) minus the time of the Simulation's step inside it
-(``sim.profile.total``); so it counts the structural diff, ``sim.add_body`` / ``remove_body`` for
+(``sim.timings.total``); so it counts the structural diff, ``sim.add_body`` / ``remove_body`` for
 churned bodies, pending writes, the fixed-step bookkeeping and the scatter. The share is the
 median overhead over the median step time. Nothing here is asserted by a test::
 
@@ -125,7 +125,7 @@ def _run(make: Callable[[int], Any], bodies: int, dim: int, steps: int, seed: in
     ents = [game.create(p) for p in _spawn_specs(dim, bodies, rng)]
     t0 = time.perf_counter()
     game.frame()  # the first frame makes every body: reported apart
-    spawn = time.perf_counter() - t0 - game.sim.profile.total
+    spawn = time.perf_counter() - t0 - game.sim.timings.total
     per_phase = max(1, steps // len(PHASES))
     out: dict[str, Any] = {"spawn_ms": 1e3 * spawn, "spawn_us_per_body": 1e6 * spawn / bodies}
     made = bodies
@@ -150,8 +150,8 @@ def _run(make: Callable[[int], Any], bodies: int, dim: int, steps: int, seed: in
             t0 = time.perf_counter()
             game.frame()
             total = time.perf_counter() - t0
-            step.append(game.sim.profile.total)
-            over.append(total - game.sim.profile.total + t_write)
+            step.append(game.sim.timings.total)
+            over.append(total - game.sim.timings.total + t_write)
         ms_over, ms_step = 1e3 * float(np.median(over)), 1e3 * float(np.median(step))
         out[phase] = {"overhead_ms": ms_over, "step_ms": ms_step, "share": ms_over / ms_step}
     out["bodies"] = game.sim.count

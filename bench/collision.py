@@ -1,10 +1,10 @@
-"""Benchmark of the broadphase: ``update_pairs`` on a scene of many moving bodies.
+"""Benchmark of the broadphase: ``find_pairs`` on a scene of many moving bodies.
 
 Scene: ``bodies`` dynamic bodies in ``dim`` dimensions, half balls (radius 0.2-0.5 m) and half
 boxes (half-extents 0.15-0.4 m) with random orientations, spread uniformly over a cube whose edge
 is chosen so that a body's fattened box overlaps about three others, moving at about 1 m/s and
 spinning, over a static floor half-space. Each of ``steps`` updates first advances the positions
-by ``v dt`` (so the boxes really move), then times ``update_pairs``; the median is reported.
+by ``v dt`` (so the boxes really move), then times ``find_pairs``; the median is reported.
 
 For comparison the same fattened boxes also go through the one-axis sweep-and-prune
 (:func:`ndrigid.core.broadphase.sweep_and_prune_pairs`) and the grid alone, so the choice recorded
@@ -54,10 +54,10 @@ def _median_ms(samples: list[float]) -> float:
 
 def run_broadphase_bench(bodies: int = 10_000, dim: int = 4, steps: int = 20,
                          seed: int = 0, sap_steps: int = 3) -> dict[str, Any]:
-    """Time ``update_pairs`` over ``steps`` updates of the moving scene.
+    """Time ``find_pairs`` over ``steps`` updates of the moving scene.
 
-    Returns a dict with the median milliseconds of ``update_pairs`` (wall clock ``update_pairs_ms``
-    and process CPU time ``update_pairs_cpu_ms``, the steadier figure on a shared machine), of the
+    Returns a dict with the median milliseconds of ``find_pairs`` (wall clock ``find_pairs_ms``
+    and process CPU time ``find_pairs_cpu_ms``, the steadier figure on a shared machine), of the
     box pass alone (``aabb_ms``), of the grid and of the sweep-and-prune on the same fat boxes
     (``grid_ms``; ``sweep_and_prune_ms`` over the first ``sap_steps`` updates), and the mean number
     of pairs found.
@@ -65,7 +65,7 @@ def run_broadphase_bench(bodies: int = 10_000, dim: int = 4, steps: int = 20,
     sim = build_scene(bodies, dim, seed)
     b, s, dt = sim.bodies, sim.settings, sim.settings.dt
     shapes, caches = sim.info.shapes, sim.caches
-    bp.update_pairs(sim.alg, b, shapes, s, caches, dt)  # warm-up: shape clouds, first allocations
+    bp.find_pairs(sim.alg, b, shapes, s, caches, dt)  # warm-up: shape clouds, first allocations
     t_up: list[float] = []
     cpu_up: list[float] = []
     t_box: list[float] = []
@@ -75,7 +75,7 @@ def run_broadphase_bench(bodies: int = 10_000, dim: int = 4, steps: int = 20,
     for step in range(steps):
         b.position[:] += dt * b.velocity
         t0, c0 = time.perf_counter(), time.process_time()
-        pairs = bp.update_pairs(sim.alg, b, shapes, s, caches, dt)
+        pairs = bp.find_pairs(sim.alg, b, shapes, s, caches, dt)
         t1, c1 = time.perf_counter(), time.process_time()
         lo, hi, _ = bp.fat_aabbs(sim.alg, b, shapes, s, dt, caches)
         t2 = time.perf_counter()
@@ -98,8 +98,8 @@ def run_broadphase_bench(bodies: int = 10_000, dim: int = 4, steps: int = 20,
         "bodies": bodies,
         "dim": dim,
         "steps": steps,
-        "update_pairs_ms": _median_ms(t_up),
-        "update_pairs_cpu_ms": _median_ms(cpu_up),
+        "find_pairs_ms": _median_ms(t_up),
+        "find_pairs_cpu_ms": _median_ms(cpu_up),
         "aabb_ms": _median_ms(t_box),
         "grid_ms": _median_ms(t_grid),
         "sweep_and_prune_ms": _median_ms(t_sap) if t_sap else float("nan"),
@@ -111,7 +111,7 @@ def main() -> None:
     """Print the broadphase figures."""
     r = run_broadphase_bench()
     print(f"broadphase, {r['bodies']} moving {r['dim']}-D bodies, median of {r['steps']} updates:")
-    for key in ("update_pairs_ms", "update_pairs_cpu_ms", "aabb_ms", "grid_ms", "sweep_and_prune_ms"):
+    for key in ("find_pairs_ms", "find_pairs_cpu_ms", "aabb_ms", "grid_ms", "sweep_and_prune_ms"):
         print(f"  {key:<20} {r[key]:8.2f}")
     print(f"  {'pairs':<20} {r['pairs']:8.0f}")
 

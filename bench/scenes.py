@@ -41,7 +41,7 @@ def _bin_walls(sim: Simulation, half_width: float) -> None:
 def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     """Mixed boxes and balls in a walled bin, sleeping off."""
     rng = np.random.default_rng(seed)
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     size = 0.5
     # bin floor area holds about bodies^(1/(n-1))... choose a width giving ~6 layers
     per_layer = max(1.0, bodies / 6.0)
@@ -67,7 +67,7 @@ def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
 def build_pyramid(dim: int, base: int, seed: int) -> tuple[Simulation, int]:
     """A pyramid of unit-ish boxes in the e0-e1 plane (other axes at 0), base ``base`` boxes."""
     del seed
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     up = np.zeros(dim)
     up[1] = 1.0
     sim.add_body(HalfSpace(up, 0.0), kind="static")
@@ -85,7 +85,7 @@ def build_pyramid(dim: int, base: int, seed: int) -> tuple[Simulation, int]:
 def build_spin(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     """Free bodies far apart with random angular velocities; only integration does work."""
     rng = np.random.default_rng(seed)
-    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(sleep_enabled=False))
     box = Box(np.linspace(0.2, 0.5, dim))
     side = int(np.ceil(bodies ** (1.0 / dim)))
     for i in range(bodies):
@@ -97,7 +97,7 @@ def build_spin(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
 def build_cloud(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     """Moving balls and boxes in a cloud of density ~1 body per 8 unit cells (broadphase load)."""
     rng = np.random.default_rng(seed)
-    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(sleep_enabled=False))
     extent = (8.0 * bodies) ** (1.0 / dim)
     shapes = [Ball(dim, 0.4), Box(np.full(dim, 0.3))]
     for i in range(bodies):
@@ -109,7 +109,7 @@ def build_cloud(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
 def build_boxes(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     """Randomly turned boxes in a dense cloud (about one touching neighbour each): box/box load."""
     rng = np.random.default_rng(seed)
-    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(sleep_enabled=False))
     extent = (6.0 * bodies) ** (1.0 / dim)
     box = Box(np.full(dim, 0.4))
     for _ in range(bodies):
@@ -131,16 +131,16 @@ SCENES: dict[str, SceneBuilder] = {
 KEPT_STAGES: dict[str, tuple[str, ...] | None] = {
     "pile": None,
     "pyramid": None,
-    "spin": ("integrate_velocities", "integrate_positions"),
-    "broadphase": ("update_pairs", "integrate_positions"),
-    "boxes": ("update_pairs", "collide", "integrate_positions"),
+    "spin": ("accelerate", "advance_poses"),
+    "broadphase": ("find_pairs", "advance_poses"),
+    "boxes": ("find_pairs", "find_contacts", "advance_poses"),
 }
 
 # which stages are timed for each scene (None: the whole step)
 TIMED_STAGES: dict[str, tuple[str, ...] | None] = {
     "pile": None,
     "pyramid": None,
-    "spin": ("integrate_velocities", "integrate_positions"),
-    "broadphase": ("update_pairs",),
-    "boxes": ("collide",),
+    "spin": ("accelerate", "advance_poses"),
+    "broadphase": ("find_pairs",),
+    "boxes": ("find_contacts",),
 }

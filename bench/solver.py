@@ -2,12 +2,12 @@
 
 Two measurements per dimension and batching (``"manifold"``, ``"point"``, ``"jacobi"``):
 
-* ``kernel``: :func:`~ndrigid.core.solver.solve_contacts` alone on a hand-built contact set of
+* ``kernel``: :func:`~ndrigid.core.solver.solve_impulses` alone on a hand-built contact set of
   boxes resting on a static floor, in rows of stacks (each box carries one face manifold of
   2**(n-1) points on the body below). The cost per point per iteration is the slope between two
   iteration counts, so the per-call set-up (Jacobians, colouring, warm start) drops out; the
   set-up is reported apart as ``setup_us``.
-* ``exact_stack``: a stack of boxes with exact face contacts from a small collide stage written
+* ``exact_stack``: a stack of boxes with exact face contacts from a small find_contacts stage written
   here (no narrowphase), so that the solver's own stacking quality shows apart from the manifolds;
 * ``stack`` / ``pyramid``: a stack of boxes (and a pyramid for the given base) through the whole
   Simulation, with the real narrowphase, for ``seconds`` at 60 Hz with sleeping off.
@@ -30,12 +30,12 @@ import numpy as np
 from ndrigid.core.contacts import ContactSet, contact_keys
 from ndrigid.core.shapes import Box, HalfSpace
 from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.solver import BATCHINGS, solve_contacts
+from ndrigid.core.solver import BATCHINGS, solve_impulses
 
 
 def _stacked_contacts(dim: int, columns: int, height: int) -> tuple[Simulation, ContactSet]:
     """``columns`` stacks of ``height`` unit boxes on a static floor, with exact face contacts."""
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     up = np.zeros(dim)
     up[1] = 1.0
     sim.add_body(Box(np.r_[1e3, 0.5, [1e3] * (dim - 2)]), kind="static", position=-0.5 * up)
@@ -68,7 +68,7 @@ def _stacked_contacts(dim: int, columns: int, height: int) -> tuple[Simulation, 
 
 
 def _time_solve(sim: Simulation, c: ContactSet, settings: Settings, repeats: int) -> float:
-    """Median seconds of one solve_contacts call (velocities reset before each call)."""
+    """Median seconds of one solve_impulses call (velocities reset before each call)."""
     v0 = sim.bodies.velocity.copy()
     w0 = sim.bodies.angular_velocity.copy()
     p0 = sim.bodies.position.copy()
@@ -78,7 +78,7 @@ def _time_solve(sim: Simulation, c: ContactSet, settings: Settings, repeats: int
         sim.bodies.angular_velocity[...] = w0
         sim.bodies.position[...] = p0
         t0 = time.perf_counter()
-        solve_contacts(sim.alg, sim.bodies, c, sim.settings.dt, settings, sim.caches)
+        solve_impulses(sim.alg, sim.bodies, c, sim.settings.dt, settings, sim.caches)
         times.append(time.perf_counter() - t0)
     return float(np.median(times))
 
@@ -89,9 +89,9 @@ def kernel_record(dim: int, batching: str, columns: int = 20, height: int = 5,
     sim, c = _stacked_contacts(dim, columns, height)
     sim.bodies.velocity[1:, 1] = -9.81 * sim.settings.dt
     lo, hi = 2, 12
-    base = replace(sim.settings, solver_batching=batching, relax_iterations=0)
-    t_lo = _time_solve(sim, c, replace(base, velocity_iterations=lo), repeats)
-    t_hi = _time_solve(sim, c, replace(base, velocity_iterations=hi), repeats)
+    base = replace(sim.settings, solver_batching=batching, bias_free_passes=0)
+    t_lo = _time_solve(sim, c, replace(base, solver_passes=lo), repeats)
+    t_hi = _time_solve(sim, c, replace(base, solver_passes=hi), repeats)
     per_iter = (t_hi - t_lo) / (hi - lo)
     from ndrigid.core.solver import _batches
 
@@ -131,7 +131,7 @@ def _pyramid(dim: int, base: int, settings: Settings) -> tuple[Simulation, int]:
 
 def scene_record(scene: str, dim: int, batching: str, size: int, seconds: float) -> dict[str, Any]:
     """Run a stack (``size`` boxes) or pyramid (base ``size``) for ``seconds`` at 60 Hz."""
-    st = replace(Settings(), allow_sleep=False, solver_batching=batching)
+    st = replace(Settings(), sleep_enabled=False, solver_batching=batching)
     sim, top = (_box_stack if scene == "stack" else _pyramid)(dim, size, st)
     solve_ms, worst = [], 0.0
     for i in range(int(round(seconds / st.dt)) + 60):
@@ -139,7 +139,7 @@ def scene_record(scene: str, dim: int, batching: str, size: int, seconds: float)
             x1 = sim.position(top)  # after a 1 s settle
         sim.step()
         if i >= 60:
-            solve_ms.append(sim.profile.stages.get("solve_contacts", 0.0) * 1e3)
+            solve_ms.append(sim.timings.stages.get("solve_impulses", 0.0) * 1e3)
             worst = max(worst, sim.kinetic_energy())
     drift = float(np.linalg.norm(sim.position(top) - x1))  # box size 1
     c = sim.contacts
@@ -147,11 +147,11 @@ def scene_record(scene: str, dim: int, batching: str, size: int, seconds: float)
             "bodies": sim.count - 1, "seconds": seconds, "points": 0 if c is None else c.count,
             "top_drift_after_settle_sizes": drift, "max_kinetic_energy_J": worst,
             "final_kinetic_energy_J": sim.kinetic_energy(),
-            "solve_ms_median": float(np.median(solve_ms)), "step_ms_last": sim.profile.total * 1e3}
+            "solve_ms_median": float(np.median(solve_ms)), "step_ms_last": sim.timings.total * 1e3}
 
 
 def _exact_stack_stage(height: int, dim: int):
-    """A collide stage for a vertical stack: the bottom face corners of box i against the top
+    """A find_contacts stage for a vertical stack: the bottom face corners of box i against the top
     face of body i-1 (row 0: a static floor box), normal along the lower body's e1 axis."""
     corners = np.array(np.meshgrid(*[[-0.5, 0.5]] * (dim - 1), indexing="ij")).reshape(dim - 1, -1).T
     local = np.zeros((corners.shape[0], dim))
@@ -181,8 +181,8 @@ def exact_stack_record(dim: int, batching: str, height: int = 10, seconds: float
                        **settings: Any) -> dict[str, Any]:
     """A stack of ``height`` unit boxes with exact face contacts (no narrowphase): the solver's
     own stacking quality. Drift of the top box after a 1 s settle, residual kinetic energy.
-    ``settings`` override Settings fields (e.g. velocity_iterations)."""
-    st = replace(Settings(), allow_sleep=False, solver_batching=batching, **settings)
+    ``settings`` override Settings fields (e.g. solver_passes)."""
+    st = replace(Settings(), sleep_enabled=False, solver_batching=batching, **settings)
     sim = Simulation(dim, settings=st)
     up = np.zeros(dim)
     up[1] = 1.0
@@ -191,8 +191,8 @@ def exact_stack_record(dim: int, batching: str, height: int = 10, seconds: float
     for level in range(height):
         top = sim.add_body(Box(np.full(dim, 0.5)), position=(0.5 + level) * up, friction=0.6)
     stage = _exact_stack_stage(height, dim)
-    sim.stages = [(name, stage if name == "collide" else fn) for name, fn in sim.stages
-                  if name != "update_pairs"]
+    sim.stages = [(name, stage if name == "find_contacts" else fn) for name, fn in sim.stages
+                  if name != "find_pairs"]
     solve_ms, worst = [], 0.0
     steps = int(round(seconds / st.dt))
     for i in range(steps + 60):
@@ -200,7 +200,7 @@ def exact_stack_record(dim: int, batching: str, height: int = 10, seconds: float
             x1 = sim.position(top)
         sim.step()
         if i >= 60:
-            solve_ms.append(sim.profile.stages.get("solve_contacts", 0.0) * 1e3)
+            solve_ms.append(sim.timings.stages.get("solve_impulses", 0.0) * 1e3)
             worst = max(worst, sim.kinetic_energy())
     return {"bench": "solver_exact_stack", "dim": dim, "batching": batching, "size": height,
             "seconds": seconds, "points": sim.contacts.count,

@@ -11,7 +11,7 @@ from .mass import MassProperties, inertia_from_covariance, rotate_inertia, shift
 from .noff import read_noff, write_noff
 from .polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
 from .shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
-from .simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepProfile
+from .simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepTimings
 
 __all__ = [
     "DYNAMIC",
@@ -30,7 +30,7 @@ __all__ = [
     "Shape",
     "SimplexMesh",
     "Simulation",
-    "StepProfile",
+    "StepTimings",
     "bivector_pairs",
     "cell_120",
     "cell_24",

@@ -8,11 +8,11 @@ Invariants and choices:
   points with radii (polytope and mesh vertices with radius 0; compound pieces contribute their
   rotated vertices, or a ball piece its centre with its radius), cached per shape id (shapes are
   immutable, ids never reused). One loop over the distinct cloud shapes, vectorised over bodies.
-* Fattening: each box grows by ``max(aabb_margin, speculative_distance / 2)`` plus the distance
+* Fattening: each box grows by ``max(broadphase_margin, speculative_margin / 2)`` plus the distance
   any point of the body can travel in one step, ``dt (|v| + |w| e)`` with ``e`` the reach of the
   body from its centre of mass (|W r| <= |B| |r| for a bivector B: its spectral norm is at most
   its Euclidean norm). Two fattened boxes then overlap whenever the narrowphase's speculative
-  margin ``speculative_distance + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)`` could keep a
+  margin ``speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)`` could keep a
   contact, because the gap between two shapes is never smaller than the gap between their boxes.
 * Half-spaces are unbounded: they take no part in the box test. Each half-space is paired, in one
   (H, N) vectorised test, with every body whose fattened box reaches its fattened plane (the
@@ -27,12 +27,12 @@ Invariants and choices:
   about 2^n candidates per true pair; sweeping one of the axes halves that. Measured on 10,000
   moving 4-D balls and boxes (22,000 pairs; ``python -m ndrigid.bench.collision``, one core of a
   2-core machine shared with other jobs, so figures drift by +-20 % between runs):
-  ``update_pairs`` 8.6-9.0 ms median (grid 6.2-6.4 ms, boxes 1.2 ms); sweep-and-prune 240 ms; a
+  ``find_pairs`` 8.6-9.0 ms median (grid 6.2-6.4 ms, boxes 1.2 ms); sweep-and-prune 240 ms; a
   full 4-axis grid (the first version) 22 ms for the grid alone. ``python -m ndrigid.bench
-  broadphase --dim 4 --bodies 10000`` (a uniform cloud): ``update_pairs`` 7.6-8.2 ms. The
+  broadphase --dim 4 --bodies 10000`` (a uniform cloud): ``find_pairs`` 7.6-8.2 ms. The
   previous grid (a ``searchsorted`` of every run end, a repeat-based run expansion, boolean-mask
   compaction, an (N, 2^m) entry mask) gave 14.1 ms (grid 11.2 ms) and 12.4 ms on the same two
-  benchmarks; run side by side in one process on the same boxes the new ``update_pairs`` takes
+  benchmarks; run side by side in one process on the same boxes the new ``find_pairs`` takes
   0.58 of its time in 4-D (0.59 in 2-D, 0.57 in 3-D, 0.65 in 5-D, 10,000 bodies each). Where the
   time went, by line profile: boolean-mask indexing ``a[m]`` with an unpredictable mask (4.5
   times a ``flatnonzero`` plus integer gathers), the unsorted-needle ``searchsorted`` (2.5 ms on
@@ -91,7 +91,7 @@ __all__ = [
     "halfspace_planes",
     "shape_cloud",
     "sweep_and_prune_pairs",
-    "update_pairs",
+    "find_pairs",
     "world_aabbs",
 ]
 
@@ -213,7 +213,7 @@ def _row_norms(x: Array) -> Array:
 
 def _fattening(bodies: Bodies, settings: Any, dt: float) -> Array:
     """Per-body growth (N,) of the bounding boxes: margin plus the reach of one step's motion."""
-    margin = max(float(settings.aabb_margin), 0.5 * float(settings.speculative_distance))
+    margin = max(float(settings.broadphase_margin), 0.5 * float(settings.speculative_margin))
     reach = bodies.radius + _row_norms(bodies.local_centroid)
     v = _row_norms(bodies.velocity)
     w = _row_norms(bodies.angular_velocity)
@@ -224,7 +224,7 @@ def _fattening(bodies: Bodies, settings: Any, dt: float) -> Array:
 
 def fat_aabbs(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any, dt: float,
               caches: dict[str, Any] | None = None) -> tuple[Array, Array, Array]:
-    """Fattened boxes ``(lo, hi)`` (N, n) and the per-body fattening (N,) used by :func:`update_pairs`."""
+    """Fattened boxes ``(lo, hi)`` (N, n) and the per-body fattening (N,) used by :func:`find_pairs`."""
     lo, hi = world_aabbs(alg, bodies, shapes, caches)
     fat = _fattening(bodies, settings, dt)
     return lo - fat[:, None], hi + fat[:, None], fat
@@ -477,7 +477,7 @@ def _sorted_unique_pairs(a: IntArray, b: IntArray, N: int) -> IntArray:
     return np.stack([first, second], axis=1).astype(np.int64)
 
 
-def update_pairs(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any, caches: dict[str, Any],
+def find_pairs(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any, caches: dict[str, Any],
                  dt: float) -> IntArray:
     """Candidate pairs (P, 2) int64 of body rows (a < b), sorted, whose fattened boxes overlap.
 

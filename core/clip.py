@@ -22,7 +22,7 @@ the plane that clipped it; no end lies outside any plane by more than rounding.
 Reduction (:func:`reduce_points`, used by the polytope kernel). Keep the deepest point, then
 greedily the candidate farthest (in the tangent space of the contact) from every point kept so far,
 up to a cap (farthest-point sampling). This keeps the extent of the contact patch, which is what
-stops a resting body from rocking. The area-maximising 3-D rule (Gregorius, GDC 2015) does not
+stops a resting body from rocking. An area-maximising rule (common practice in 3-D) does not
 state itself in n-D without a hull of the candidates.
 
 Selection (:func:`select_points`, used by the box kernels). Farthest-point sampling picks edge

@@ -2,16 +2,18 @@
 
 Method:
 
-* GJK (van den Bergen, GDC 2001, for any n) walks a simplex of at most n + 1 support points of the
-  Minkowski difference D = A - B toward the origin. The closest point of a simplex comes from the
-  affine Gram system of each non-empty subset of its points with negative weights rejected
+* GJK (Gilbert, Johnson and Keerthi, IEEE J. Robotics and Automation 4(2), 1988; stated here for
+  any n) walks a simplex of at most n + 1 support points of the Minkowski difference D = A - B
+  toward the origin. The closest point of a simplex comes from the affine Gram system of each
+  non-empty subset of its points with negative weights rejected
   (Johnson's sub-algorithm in its enumerative form): all 2^m - 1 subsets are solved in one batched
   call, and the nearest point with non-negative weights wins. A tiny Tikhonov term keeps affinely
   dependent subsets solvable; their answers are still convex combinations of the simplex points, so
   they can never win with a wrong distance. Stop when the support gain is below a relative
   tolerance, when the simplex fills n + 1 points around the origin, or after an iteration cap.
-* EPA (same source) grows a polytope of (n-1)-simplex facets from the final simplex (first padded to
-  n + 1 points along null-space directions when GJK stopped on a lower-dimensional face, as for
+* EPA (van den Bergen, Collision Detection in Interactive 3D Environments, 2003) grows a polytope
+  of (n-1)-simplex facets from the final simplex (first padded to n + 1 points along null-space
+  directions when GJK stopped on a lower-dimensional face, as for
   touching shapes): take the facet nearest the origin, add the support point along its normal,
   replace the facets that see the new point by cones from the horizon (ridges used by exactly one
   visible facet), stop when the support gain is below a tolerance or a point repeats. Facet normals

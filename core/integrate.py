@@ -15,8 +15,8 @@ the skew form and is pinned by tests against solve_ivp.)
 * explicit: ``w2 = w1 + h I^-1 (w1 x I w1 + tau)``;
 * implicit (default): the torque is applied first, then ``f(w2) = I (w2 - w1) - h w2 x (I w2) = 0``
   is solved with one Newton step from w1, ``J = I - h (ad_w1 I - ad_(I w1))``, ``ad_a(b) = a x b``
-  (Catto, "Numerical Methods", GDC 2015, gives this one-step implicit gyroscopic scheme in 3-D;
-  the bivector form makes it dimension-free). It is stable for long thin bodies where the explicit
+  (backward Euler on Euler's equations with one Newton step, common practice; the bivector form
+  makes it dimension-free). It is stable for long thin bodies where the explicit
   term pumps energy. The Newton estimate then sets the exact rotation of the body momentum over
   the step, which conserves |L| and the world momentum far better than the linearised step alone
   (see gyroscopic_step).
@@ -102,7 +102,7 @@ def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array
     return w2 * s[:, None]
 
 
-def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
+def accelerate(alg: Algebra, b: Bodies, gravity: Array, dt: float,
                          gyroscopic: str = GYRO_IMPLICIT) -> None:
     """Apply gravity, forces, torques, damping and the gyroscopic term to awake dynamic bodies."""
     active = (b.kind == DYNAMIC) & b.awake
@@ -138,7 +138,7 @@ def integrate_velocities(alg: Algebra, b: Bodies, gravity: Array, dt: float,
     b.angular_velocity[rows] = _matvec(C, w2)
 
 
-def integrate_positions(alg: Algebra, b: Bodies, dt: float) -> None:
+def advance_poses(alg: Algebra, b: Bodies, dt: float) -> None:
     """Move awake dynamic and kinematic bodies: centre of mass by h v, orientation by the exact
     rotor exponential of h times the world angular velocity; refresh the rotation matrices."""
     active = ((b.kind == DYNAMIC) | (b.kind == KINEMATIC)) & b.awake

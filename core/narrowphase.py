@@ -1,6 +1,6 @@
 """Narrowphase: contact manifolds for the candidate pairs, one vectorised path per pair kind.
 
-Pipeline of :func:`collide`:
+Pipeline of :func:`find_contacts`:
 
 1. Every body of a pair becomes one or more *colliders* (:class:`Colliders`, a flat table): a
    plain body gives one, a compound gives one per piece with the piece pose composed with the body
@@ -14,7 +14,7 @@ Pipeline of :func:`collide`:
    box/half-space and polytope/half-space (vertices against the plane, grouped per shape) are here;
    box/box goes to :func:`sat.box_box` in one batch; ball/polytope, box/polytope and
    polytope/polytope go pair by pair to :mod:`gjk` (their per-pair cost is dominated by GJK/EPA).
-4. Speculative margin of a pair: ``speculative_distance + dt (|v_a| + |v_b| + |w_a| e_a +
+4. Speculative margin of a pair: ``speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a +
    |w_b| e_b)`` with ``e`` a body's reach from its centre of mass (a bound on the closing speed of
    any two surface points); points whose gap is below it are kept, with negative depth.
 
@@ -67,7 +67,7 @@ __all__ = [
     "ball_box",
     "ball_halfspace",
     "box_halfspace",
-    "collide",
+    "find_contacts",
     "collide_colliders",
     "colliders_of_rows",
     "colliders_of_shape",
@@ -518,11 +518,11 @@ def _mix_pieces(feature: IntArray, piece_a: IntArray, piece_b: IntArray) -> IntA
 
 
 def pair_margins(bodies: Bodies, a: IntArray, b: IntArray, settings: Any, dt: float) -> Array:
-    """Speculative margins (P,): ``speculative_distance + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)``."""
+    """Speculative margins (P,): ``speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)``."""
     reach = bodies.radius + np.linalg.norm(bodies.local_centroid, axis=1)
     reach = np.where(np.isfinite(reach), reach, 0.0)  # a half-space's rotation is not bounded here
     speed = np.linalg.norm(bodies.velocity, axis=1) + np.linalg.norm(bodies.angular_velocity, axis=1) * reach
-    return float(settings.speculative_distance) + dt * (speed[a] + speed[b])
+    return float(settings.speculative_margin) + dt * (speed[a] + speed[b])
 
 
 def _carry_inert(bodies: Bodies, cache: dict[str, Any], name: str, now: IntArray) -> IntArray:
@@ -546,7 +546,7 @@ def _carry_inert(bodies: Bodies, cache: dict[str, Any], name: str, now: IntArray
     return now
 
 
-def collide(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[Any], settings: Any,
+def find_contacts(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[Any], settings: Any,
             caches: dict[str, Any], dt: float) -> tuple[ContactSet, IntArray, IntArray]:
     """Contact manifolds of the candidate pairs (P, 2) of body rows.
 

@@ -32,23 +32,23 @@ class ContactEvent(NamedTuple):
     sensor: bool
 
 
-def _stage_update_pairs(sim: Simulation, dt: float) -> None:
-    sim.pairs = broadphase.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+def _stage_find_pairs(sim: Simulation, dt: float) -> None:
+    sim.pairs = broadphase.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
 
 
-def _stage_collide(sim: Simulation, dt: float) -> None:
-    contacts, touching, sensor_touching = narrowphase.collide(
+def _stage_find_contacts(sim: Simulation, dt: float) -> None:
+    contacts, touching, sensor_touching = narrowphase.find_contacts(
         sim.alg, sim.bodies, sim.pairs, sim.info.shapes, sim.settings, sim.caches, dt)
     sim.contacts = contacts
     _update_events(sim, touching, sensor_touching)
 
 
 def _stage_solve(sim: Simulation, dt: float) -> None:
-    solver.solve_contacts(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    solver.solve_impulses(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
 
 
 def _stage_sleep(sim: Simulation, dt: float) -> None:
-    sleep.update_sleep(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    sleep.settle_islands(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
 
 
 def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
@@ -78,9 +78,9 @@ def removal_events(sim: Simulation, handle: int) -> None:
 
 
 def collision_stages() -> list[tuple[str, Stage]]:
-    return [("update_pairs", _stage_update_pairs), ("collide", _stage_collide),
-            ("solve_contacts", _stage_solve)]
+    return [("find_pairs", _stage_find_pairs), ("find_contacts", _stage_find_contacts),
+            ("solve_impulses", _stage_solve)]
 
 
 def sleep_stages() -> list[tuple[str, Stage]]:
-    return [("update_sleep", _stage_sleep)]
+    return [("settle_islands", _stage_sleep)]

@@ -10,12 +10,12 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
 
 :func:`use_reference_stages` swaps these in for a Simulation's stages:
 
-* ``integrate_velocities`` / ``integrate_positions``: body by body, the same semi-implicit Euler
+* ``accelerate`` / ``advance_poses``: body by body, the same semi-implicit Euler
   step and the same one-Newton-step implicit gyroscopic update (core/integrate.py);
-* ``update_pairs``: every pair of bounded bodies by their fattened bounding boxes (all pairs, no
+* ``find_pairs``: every pair of bounded bodies by their fattened bounding boxes (all pairs, no
   grid), every half-space against every bounded body, the same fattening and filter rules
   (core/broadphase.py);
-* ``collide``: pair by pair, the kernel of the pair's kind written for one pair: ball/ball,
+* ``find_contacts``: pair by pair, the kernel of the pair's kind written for one pair: ball/ball,
   ball/half-space, ball/box, box/half-space, polytope/half-space, and box/box by the separating-axis
   test over all C(2n, n-1) candidate axes (the mixed axes as generalised cross products, i.e.
   determinants, rather than the vectorised path's minor tables), with the same coherence
@@ -23,13 +23,13 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
   crossings in 5-D, the same plane-set feature ids and the same stable selection of the kept
   points (core/narrowphase.py, core/sat.py, core/clip.py). Pairs involving a general convex
   polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`, which are per pair already;
-* ``solve_contacts``: contact by contact, the same sequence (core/solver.py): prepare each row
+* ``solve_impulses``: contact by contact, the same sequence (core/solver.py): prepare each row
   (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias),
   warm start by key (else by the nearest last-step point of the same pair), biased iterations and
-  relax iterations per batch in colour order (per row: the normal impulse, then the friction
+  bias-free passes per batch in colour order (per row: the normal impulse, then the friction
   vector from the tangent speeds after it, kept on the ball mu lambda_n, along the slip for a
   sliding point), the per-manifold stick/slide decision, one restitution pass, and the position
-  push by dt times the velocity the relax passes took out.
+  push by dt times the velocity the bias-free passes took out.
 
 Invariants kept equal to the vectorised path, so that results agree to rounding:
 
@@ -96,10 +96,10 @@ IntArray = NDArray[np.int64]
 
 __all__ = [
     "collide_reference",
-    "integrate_positions_reference",
-    "integrate_velocities_reference",
-    "solve_contacts_reference",
-    "update_pairs_reference",
+    "advance_poses_reference",
+    "accelerate_reference",
+    "solve_impulses_reference",
+    "find_pairs_reference",
     "use_reference_stages",
 ]
 
@@ -135,7 +135,7 @@ def _gyroscopic_one(alg: Algebra, w: Array, inertia: Array, tau: Array, dt: floa
     return w2 * np.sqrt(min(1.0, E1 / (E2 if E2 > 0.0 else 1.0)))
 
 
-def integrate_velocities_reference(alg: Algebra, b: Bodies, gravity: Array, dt: float,
+def accelerate_reference(alg: Algebra, b: Bodies, gravity: Array, dt: float,
                                    gyroscopic: str = "implicit") -> None:
     """Gravity, forces, damping and the gyroscopic term, body by body (awake dynamic bodies)."""
     for i in range(b.count):
@@ -159,7 +159,7 @@ def integrate_velocities_reference(alg: Algebra, b: Bodies, gravity: Array, dt: 
         b.angular_velocity[i] = C @ w2
 
 
-def integrate_positions_reference(alg: Algebra, b: Bodies, dt: float) -> None:
+def advance_poses_reference(alg: Algebra, b: Bodies, dt: float) -> None:
     """Centre of mass by h v, rotor by exp(-h/2 B) R, body by body (awake dynamic and kinematic)."""
     for i in range(b.count):
         if b.kind[i] not in (DYNAMIC, KINEMATIC) or not b.awake[i]:
@@ -214,7 +214,7 @@ def _reach(bodies: Bodies, i: int) -> float:
 
 def _fattening(bodies: Bodies, settings: Any, dt: float, i: int) -> float:
     """Margin plus the distance any point of body i can travel in one step."""
-    margin = max(float(settings.aabb_margin), 0.5 * float(settings.speculative_distance))
+    margin = max(float(settings.broadphase_margin), 0.5 * float(settings.speculative_margin))
     reach = _reach(bodies, i)
     v = float(np.linalg.norm(bodies.velocity[i]))
     w = float(np.linalg.norm(bodies.angular_velocity[i]))
@@ -243,7 +243,7 @@ def _world_plane(bodies: Bodies, shape: Any, i: int) -> tuple[Array, float]:
     return u, float(shape.offset) + float(u @ bodies.position[i])
 
 
-def update_pairs_reference(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any,
+def find_pairs_reference(alg: Algebra, bodies: Bodies, shapes: list[Any], settings: Any,
                            caches: dict[str, Any], dt: float) -> IntArray:
     """Candidate pairs (P, 2) int64 of body rows (a < b), sorted: every pair of fattened boxes that
     overlap on every axis, and every (body, half-space) whose fattened box reaches the fattened plane."""
@@ -936,14 +936,14 @@ def _contact_key(ha: int, hb: int, feature: int) -> int:
 
 
 def _pair_margin(bodies: Bodies, a: int, b: int, settings: Any, dt: float) -> float:
-    """speculative_distance + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)."""
+    """speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a + |w_b| e_b)."""
     speed = []
     for i in (a, b):
         reach = _reach(bodies, i)
         reach = reach if np.isfinite(reach) else 0.0  # a half-space's spin is not bounded here
         speed.append(float(np.linalg.norm(bodies.velocity[i]))
                      + float(np.linalg.norm(bodies.angular_velocity[i])) * reach)
-    return float(settings.speculative_distance) + dt * (speed[0] + speed[1])
+    return float(settings.speculative_margin) + dt * (speed[0] + speed[1])
 
 
 def _carry_inert(bodies: Bodies, cache: dict[str, Any], name: str, now: list[tuple[int, int]]) -> IntArray:
@@ -969,7 +969,7 @@ def _carry_inert(bodies: Bodies, cache: dict[str, Any], name: str, now: list[tup
 
 def collide_reference(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[Any], settings: Any,
                       caches: dict[str, Any], dt: float) -> tuple[ContactSet, IntArray, IntArray]:
-    """Contact manifolds of the candidate pairs (P, 2), pair by pair (returns as narrowphase.collide).
+    """Contact manifolds of the candidate pairs (P, 2), pair by pair (returns as narrowphase.find_contacts).
 
     Returns the ContactSet (rows in pair order, ``manifold`` numbering the pairs with points), the
     touching non-sensor pairs (T, 2) and the overlapping sensor pairs (S, 2).
@@ -1052,7 +1052,7 @@ def _wedge(alg: Algebra, r: Array, u: Array) -> Array:
 
 
 def _soft(hertz: float, zeta: float, dt: float) -> tuple[float, float, float]:
-    """Bias rate, mass scale and impulse scale of a soft constraint (Catto, "Soft Constraints")."""
+    """Bias rate, mass scale and impulse scale of a soft constraint (an implicit spring-damper)."""
     w = 2.0 * np.pi * hertz
     a = dt * w * (2.0 * zeta + dt * w)
     return w / (2.0 * zeta + dt * w), a / (1.0 + a), 1.0 / (1.0 + a)
@@ -1190,9 +1190,9 @@ def _warm_start_values(contacts: ContactSet, pair: list[int], old: dict[str, Any
     return lam_n, lam_t, sliding
 
 
-def solve_contacts_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float,
+def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float,
                              settings: Any, caches: dict[str, Any]) -> None:
-    """Resolve one step's contact rows contact by contact (arguments as in solver.solve_contacts).
+    """Resolve one step's contact rows contact by contact (arguments as in solver.solve_impulses).
 
     Updates the velocities of awake dynamic bodies (and pushes their poses) in place and keeps the
     accumulated impulses in ``caches["solver"]`` in the vectorised solver's layout, so either
@@ -1275,8 +1275,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
                 inv_m[body] = 0.0
                 inv_I[body] = np.zeros((k, k))
 
-    hertz = min(float(settings.contact_hertz), _HERTZ_CAP / dt)
-    rate, mscale, iscale = _soft(hertz, float(settings.contact_damping_ratio), dt)
+    hertz = min(float(settings.spring_frequency), _HERTZ_CAP / dt)
+    rate, mscale, iscale = _soft(hertz, float(settings.spring_damping_ratio), dt)
     prepared: list[_Row] = []
     for i, col in zip(rows, row_colour, strict=True):
         a, b = int(c.body_a[i]), int(c.body_b[i])
@@ -1302,7 +1302,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         sep = -float(c.depth[i])
         spec = sep > 0.0
         soft = float(c.depth[i]) > 0.0
-        push = max(rate * min(sep + settings.linear_slop, 0.0), -settings.max_push_speed)
+        push = max(rate * min(sep + settings.overlap_allowance, 0.0), -settings.separation_speed_cap)
         X_ab = np.concatenate([X[a], X[b]])
         prepared.append(_Row(
             i=i, a=a, b=b, colour=col, manifold=int(c.manifold[i]), D=D, G=G, H=H, K01=K[0, 1:].copy(),
@@ -1375,10 +1375,10 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
                 X[a] += total[:w]
                 X[b] += total[w:]
 
-    for _ in range(int(settings.velocity_iterations)):
+    for _ in range(int(settings.solver_passes)):
         sweep(True)
     X_biased = X.copy()
-    for _ in range(int(settings.relax_iterations)):
+    for _ in range(int(settings.bias_free_passes)):
         sweep(False)
 
     # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
@@ -1395,10 +1395,10 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         max_slip2, total_t, limit = per_manifold[r.manifold]
         r.slides_now = total_t >= (1.0 - 1e-3) * limit and limit > 0.0 and max_slip2 > _SLIP_SPEED ** 2
 
-    X_relaxed = X.copy()  # the push is what the relax passes took out, measured before restitution
+    X_unbiased = X.copy()  # the push is what the bias-free passes took out, measured before restitution
 
     # restitution: rows that approached faster than the threshold and took an impulse bounce
-    thr = float(settings.restitution_threshold)
+    thr = float(settings.bounce_threshold)
     for r in prepared:
         r.bounces = r.e > 0.0 and r.vn0 < -thr and r.max_n > 0.0
     for batch in batches:
@@ -1432,13 +1432,13 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             part = r.H[0, w:] if side else r.H[0, :w]
             toi_move[body] = toi_move.get(body, np.zeros(w)) + p_pos * part
 
-    # velocities back; the push moves positions by dt x (biased - relaxed velocity)
+    # velocities back; the push moves positions by dt x (biased - unbiased velocity)
     for body in range(bodies.count):
         if not dyn[body]:
             continue
         bodies.velocity[body] = X[body, :n]
         bodies.angular_velocity[body] = X[body, n:]
-        dX = dt * (X_biased[body] - X_relaxed[body])
+        dX = dt * (X_biased[body] - X_unbiased[body])
         if body in toi_move:
             dX = dX + toi_move[body]
         if np.any(dX != 0.0):
@@ -1466,15 +1466,15 @@ def _push_pose(alg: Algebra, bodies: Bodies, i: int, dX: Array) -> None:
 # =============================================================================================
 
 
-def _stage_integrate_velocities(sim: Any, dt: float) -> None:
-    integrate_velocities_reference(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+def _stage_accelerate(sim: Any, dt: float) -> None:
+    accelerate_reference(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
 
 
-def _stage_update_pairs(sim: Any, dt: float) -> None:
-    sim.pairs = update_pairs_reference(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+def _stage_find_pairs(sim: Any, dt: float) -> None:
+    sim.pairs = find_pairs_reference(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
 
 
-def _stage_collide(sim: Any, dt: float) -> None:
+def _stage_find_contacts(sim: Any, dt: float) -> None:
     from .pipeline import _update_events
 
     contacts, touching, sensors = collide_reference(sim.alg, sim.bodies, sim.pairs, sim.info.shapes,
@@ -1484,19 +1484,19 @@ def _stage_collide(sim: Any, dt: float) -> None:
 
 
 def _stage_solve(sim: Any, dt: float) -> None:
-    solve_contacts_reference(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    solve_impulses_reference(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
 
 
-def _stage_integrate_positions(sim: Any, dt: float) -> None:
-    integrate_positions_reference(sim.alg, sim.bodies, dt)
+def _stage_advance_poses(sim: Any, dt: float) -> None:
+    advance_poses_reference(sim.alg, sim.bodies, dt)
 
 
 _REFERENCE_STAGES = {
-    "integrate_velocities": _stage_integrate_velocities,
-    "update_pairs": _stage_update_pairs,
-    "collide": _stage_collide,
-    "solve_contacts": _stage_solve,
-    "integrate_positions": _stage_integrate_positions,
+    "accelerate": _stage_accelerate,
+    "find_pairs": _stage_find_pairs,
+    "find_contacts": _stage_find_contacts,
+    "solve_impulses": _stage_solve,
+    "advance_poses": _stage_advance_poses,
 }
 
 

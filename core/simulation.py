@@ -1,14 +1,14 @@
 """The Simulation facade: owns the tables of one world and runs the ordered stages of a step.
 
 A step runs these stages in order, each a plain function of the body table (and of the contact
-arrays the earlier stages made), each timed into :attr:`Simulation.profile`:
+arrays the earlier stages made), each timed into :attr:`Simulation.timings`:
 
-1. ``integrate_velocities`` -- gravity, forces, torques, damping, gyroscopic term;
-2. ``update_pairs``         -- broadphase: bounding boxes and candidate pairs;
-3. ``collide``              -- narrowphase: contact manifolds with feature ids;
-4. ``solve_contacts``       -- sequential impulses with friction, restitution, warm starting;
-5. ``integrate_positions``  -- positions and rotors from the new velocities;
-6. ``update_sleep``         -- islands, sleeping and waking.
+1. ``accelerate`` -- gravity, forces, torques, damping, gyroscopic term;
+2. ``find_pairs``         -- broadphase: bounding boxes and candidate pairs;
+3. ``find_contacts``              -- narrowphase: contact manifolds with feature ids;
+4. ``solve_impulses``       -- sequential impulses with friction, restitution, warm starting;
+5. ``advance_poses``  -- positions and rotors from the new velocities;
+6. ``settle_islands``         -- islands, sleeping and waking.
 
 Every public method validates its input before touching any state, so a call that raises leaves
 the simulation exactly as it was.
@@ -48,63 +48,78 @@ Array = NDArray[np.float64]
 
 @dataclass(frozen=True)
 class Settings:
-    """Settings of a simulation (all SI units). Change with ``sim.settings = replace(sim.settings, ...)``.
+    """Settings of a simulation (SI units). Change with ``sim.settings = replace(sim.settings, ...)``.
 
-    Attributes:
+    Stepping
         dt: default time step of :meth:`Simulation.step`, s.
-        substeps: sub-steps per step (each runs the whole pipeline with dt / substeps).
-        gyroscopic: "implicit" (default, one Newton step), "explicit" or "none".
-        velocity_iterations: solver iterations with the soft position bias.
-        relax_iterations: solver iterations without bias (remove the bias velocity).
-        contact_hertz: stiffness frequency of the soft contact constraint, Hz.
-        contact_damping_ratio: damping ratio of the soft contact constraint.
-        max_push_speed: cap on the speed at which overlap is pushed apart, m/s.
-        linear_slop: overlap allowed without correction, m.
-        speculative_distance: contacts are kept while the gap is below this, m (continuous
-            collision: a fast body is stopped at the surface instead of passing through).
-        aabb_margin: fattening of the broadphase boxes, m.
-        restitution_threshold: normal approach speeds below this do not bounce, m/s.
-        warm_start: reuse last step's impulses matched by feature ids.
-        allow_sleep: let resting islands sleep.
-        sleep_linear_speed: speed below which a body counts as resting, m/s.
-        sleep_time: rest time before an island sleeps, s.
-        solver_batching: how contact rows are batched for the vectorised solver: "point"
-            (default: colour single points, pure Gauss-Seidel), "manifold" (colour manifolds, mass
-            splitting inside one: faster, but stacks jitter) or "jacobi" (one batch, mass
-            splitting); see core/solver.py.
+        substeps: sub-steps per step (each runs every stage with dt / substeps).
+        gyroscopic: free-spin term of Euler's equations: "implicit" (one Newton step, default),
+            "explicit" or "none".
+
+    Solver passes
+        solver_passes: sequential-impulse passes with the soft overlap bias.
+        bias_free_passes: passes without the bias, which take the push velocity out again.
+        warm_start: start each row from last step's impulse matched by feature ids.
+        solver_batching: how the vectorised solver batches rows: "point" (colour single points,
+            pure Gauss-Seidel), "manifold" (colour manifolds, mass splitting inside one: faster,
+            stacks jitter) or "jacobi" (one batch, mass splitting); see core/solver.py.
+
+    Contact softness (an overlapping contact is an implicit spring-damper, see
+    :func:`ndrigid.core.solver.soft_coefficients`)
+        spring_frequency: natural frequency of the contact spring, Hz (capped at half the step
+            rate).
+        spring_damping_ratio: damping ratio of the contact spring (1 is critical).
+        overlap_allowance: overlap left uncorrected, m, so that resting contacts persist.
+        separation_speed_cap: fastest speed at which overlap is pushed apart, m/s.
+
+    Collision margins
+        speculative_margin: contacts are kept while the gap is below this, m (continuous collision:
+            a fast body is stopped at the surface instead of passing through).
+        broadphase_margin: how much each body's bounding box is fattened, m.
+
+    Bounce
+        bounce_threshold: normal approach speeds below this do not bounce, m/s.
+
+    Rest and sleep
+        sleep_enabled: let islands of resting bodies sleep.
+        rest_speed: a body rests while its speed (plus angular speed times size) is below this, m/s.
+        rest_time: how long every body of an island must rest before it sleeps, s.
+
+    Why each default is what it is (measured on our own scenes; see README "Settings"):
+    DEFAULTS_RATIONALE below, kept beside the values and checked by the tests.
     """
 
     dt: float = 1.0 / 60.0
     substeps: int = 1
     gyroscopic: str = "implicit"
-    velocity_iterations: int = 8
-    relax_iterations: int = 3
-    contact_hertz: float = 30.0
-    contact_damping_ratio: float = 10.0
-    max_push_speed: float = 3.0
-    linear_slop: float = 0.005
-    speculative_distance: float = 0.1
-    aabb_margin: float = 0.05
-    restitution_threshold: float = 1.0
+    solver_passes: int = 8
+    bias_free_passes: int = 3
     warm_start: bool = True
-    allow_sleep: bool = True
-    sleep_linear_speed: float = 0.05
-    sleep_time: float = 0.5
     solver_batching: str = "point"
+    spring_frequency: float = 30.0
+    spring_damping_ratio: float = 10.0
+    overlap_allowance: float = 0.005
+    separation_speed_cap: float = 3.0
+    speculative_margin: float = 0.1
+    broadphase_margin: float = 0.05
+    bounce_threshold: float = 1.0
+    sleep_enabled: bool = True
+    rest_speed: float = 0.05
+    rest_time: float = 0.5
 
     def validated(self) -> Settings:
-        for name in ("dt", "contact_hertz", "contact_damping_ratio", "max_push_speed", "sleep_time"):
+        for name in ("dt", "spring_frequency", "spring_damping_ratio", "separation_speed_cap", "rest_time"):
             positive_scalar(f"settings.{name}", getattr(self, name))
-        for name in ("linear_slop", "speculative_distance", "aabb_margin", "restitution_threshold",
-                     "sleep_linear_speed"):
+        for name in ("overlap_allowance", "speculative_margin", "broadphase_margin", "bounce_threshold",
+                     "rest_speed"):
             positive_scalar(f"settings.{name}", getattr(self, name), allow_zero=True)
-        for name in ("substeps", "velocity_iterations"):
+        for name in ("substeps", "solver_passes"):
             v = getattr(self, name)
             if not isinstance(v, (int, np.integer)) or v < 1:
                 raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
-        if not isinstance(self.relax_iterations, (int, np.integer)) or self.relax_iterations < 0:
-            raise InputError("settings.relax_iterations: expected an integer >= 0, got "
-                             f"{self.relax_iterations!r}")
+        if not isinstance(self.bias_free_passes, (int, np.integer)) or self.bias_free_passes < 0:
+            raise InputError("settings.bias_free_passes: expected an integer >= 0, got "
+                             f"{self.bias_free_passes!r}")
         if self.solver_batching not in ("manifold", "point", "jacobi"):
             raise InputError(f"settings.solver_batching: expected 'manifold', 'point' or 'jacobi', got "
                              f"{self.solver_batching!r}")
@@ -115,7 +130,7 @@ class Settings:
 
 
 @dataclass
-class StepProfile:
+class StepTimings:
     """Seconds spent in each stage during the last step (summed over substeps)."""
 
     stages: dict[str, float] = field(default_factory=dict)
@@ -157,7 +172,7 @@ class Simulation:
         self.gravity = g
         self.bodies = Bodies(alg)
         self.info = BodyInfo()
-        self.profile = StepProfile()
+        self.timings = StepTimings()
         self.time = 0.0
         self.step_count = 0
         # state shared between stages of one step (candidate pairs, contacts, caches)
@@ -524,7 +539,7 @@ class Simulation:
                 stage(self, hs)
                 prof[name] += time.perf_counter() - ts
         _integrate.clear_accumulators(self.bodies)
-        self.profile = StepProfile(stages=prof, total=time.perf_counter() - t0)
+        self.timings = StepTimings(stages=prof, total=time.perf_counter() - t0)
         self.time += h
         self.step_count += 1
 
@@ -666,21 +681,21 @@ def _wedge(alg: Algebra, a: Array, b: Array) -> Array:
 # -- the default stages ---------------------------------------------------------------------------
 
 
-def _stage_integrate_velocities(sim: Simulation, dt: float) -> None:
-    _integrate.integrate_velocities(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+def _stage_accelerate(sim: Simulation, dt: float) -> None:
+    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
 
 
-def _stage_integrate_positions(sim: Simulation, dt: float) -> None:
-    _integrate.integrate_positions(sim.alg, sim.bodies, dt)
+def _stage_advance_poses(sim: Simulation, dt: float) -> None:
+    _integrate.advance_poses(sim.alg, sim.bodies, dt)
 
 
 def default_stages() -> list[tuple[str, Stage]]:
     """The ordered stages of a step (see the module docstring)."""
     from .pipeline import collision_stages, sleep_stages
 
-    stages: list[tuple[str, Stage]] = [("integrate_velocities", _stage_integrate_velocities)]
+    stages: list[tuple[str, Stage]] = [("accelerate", _stage_accelerate)]
     stages += collision_stages()
-    stages.append(("integrate_positions", _stage_integrate_positions))
+    stages.append(("advance_poses", _stage_advance_poses))
     stages += sleep_stages()
     return stages
 
@@ -697,5 +712,5 @@ __all__ = [
     "SHAPE_MESH",
     "Settings",
     "Simulation",
-    "StepProfile",
+    "StepTimings",
 ]

@@ -7,10 +7,10 @@ Invariants and choices:
   body about to land joins the island it lands on). Static and kinematic bodies are not nodes:
   they would glue every body on the ground into one island. Components come from
   ``scipy.sparse.csgraph.connected_components`` (a vectorised union-find), not a Python loop.
-* A dynamic body *rests* while ``|v| + |B| * radius < sleep_linear_speed`` (``|B|``, the norm of
+* A dynamic body *rests* while ``|v| + |B| * radius < rest_speed`` (``|B|``, the norm of
   the angular-velocity bivector, bounds the speed of every point at distance ``radius`` from the
   centre); its ``rest_time`` grows by dt per resting step and drops to zero otherwise.
-* An island sleeps when every member has rested for ``sleep_time``: its bodies get
+* An island sleeps when every member has rested for ``rest_time``: its bodies get
   ``awake = False`` and zero velocity; integration and the solver skip them (zero inverse mass).
 * An island wakes, as a whole, when any member wakes: a contact with an awake dynamic body or a
   moving kinematic body (checked by the solver before it solves, :func:`wake_touched`, so the
@@ -140,7 +140,7 @@ def wake_resting_on(bodies: Bodies, caches: dict[str, Any], row: int) -> None:
         _wake_islands(bodies, caches, np.nonzero(np.isin(bodies.handle, sleepers))[0])
 
 
-def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
+def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
                  caches: dict[str, Any]) -> None:
     """Advance rest times, put resting islands to sleep and wake islands that were disturbed.
 
@@ -150,7 +150,7 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
             ``velocity`` and ``angular_velocity`` change in place.
         contacts: this step's contact rows, or None.
         dt: step length, s.
-        settings: uses ``allow_sleep``, ``sleep_linear_speed``, ``sleep_time``.
+        settings: uses ``sleep_enabled``, ``rest_speed``, ``rest_time``.
         caches: ``caches["sleep"]`` keeps the island label and supports of sleeping bodies by handle.
     """
     st = _state(caches)
@@ -158,7 +158,7 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
     if N == 0:
         return
     dynamic = bodies.kind == DYNAMIC
-    if not settings.allow_sleep:
+    if not settings.sleep_enabled:
         if not np.all(bodies.awake[dynamic]):
             bodies.awake[dynamic] = True
         bodies.rest_time[:] = 0.0
@@ -182,7 +182,7 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
 
     # 2. rest times of awake dynamic bodies
     awake_dyn = dynamic & bodies.awake
-    resting = body_speeds(bodies) < settings.sleep_linear_speed
+    resting = body_speeds(bodies) < settings.rest_speed
     rt = bodies.rest_time
     rt[awake_dyn & resting] += dt
     rt[awake_dyn & ~resting] = 0.0
@@ -208,8 +208,8 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
     np.minimum.at(min_rest, dl, rt[dynamic])
 
     # 4. islands that have all rested long enough fall asleep
-    # (a relative tolerance: rest times are sums of dt and must not miss sleep_time by rounding)
-    falls = dynamic & bodies.awake & (min_rest[np.maximum(labels, 0)] >= settings.sleep_time * (1.0 - 1e-9))
+    # (a relative tolerance: rest times are sums of dt and must not miss rest_time by rounding)
+    falls = dynamic & bodies.awake & (min_rest[np.maximum(labels, 0)] >= settings.rest_time * (1.0 - 1e-9))
     if not np.any(falls):
         return
     rows = np.nonzero(falls)[0]
@@ -233,4 +233,4 @@ def update_sleep(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: 
     del alg
 
 
-__all__ = ["body_speeds", "island_labels", "update_sleep", "wake_resting_on", "wake_touched"]
+__all__ = ["body_speeds", "island_labels", "settle_islands", "wake_resting_on", "wake_touched"]

@@ -1,8 +1,10 @@
 """The contact solver: sequential impulses over batches of contact rows, in any dimension.
 
-What one call of :func:`solve_contacts` does (Catto, "Iterative Dynamics with Temporal
-Coherence", GDC 2005; "Soft Constraints", GDC 2011; the soft-step ordering of his 2024
-"Solver2D" notes):
+What one call of :func:`solve_impulses` does. The method is sequential impulses, i.e. projected
+Gauss-Seidel on the velocity-level contact problem (Erleben, "Velocity-based shock propagation for
+multibody dynamics animation", ACM TOG 26(2), 2007), with warm starting across steps, and soft
+contacts stated as an implicit (backward-Euler) spring-damper, derived in :func:`soft_coefficients`
+(common practice):
 
 1. *Prepare.* Every contact point is one row with n directions: the normal d (from A to B) and an
    orthonormal basis T of the (n-1)-dimensional tangent space. With offsets r from the world
@@ -14,20 +16,20 @@ Coherence", GDC 2005; "Soft Constraints", GDC 2011; the soft-step ordering of hi
 2. *Warm start* from last step's accumulated impulses, matched by ``contacts.key``, or for a new
    key by the nearest old point of the same body pair within 2 cm (the tangent impulse is kept as
    a world vector and re-projected onto the new tangent plane).
-3. *Solve with bias* (``velocity_iterations``): the normal row, then friction (which then sees
+3. *Solve with bias* (``solver_passes``): the normal row, then friction (which then sees
    this iteration's load), per batch. Overlapping rows are soft (bias rate, mass scale and
-   impulse scale from ``contact_hertz``, capped at half the step rate, ``contact_damping_ratio``
-   and dt); overlap beyond ``linear_slop`` is pushed out at the bias rate, the push speed capped
-   at ``max_push_speed``. A speculative row (gap g > 0) is rigid and allows a closing speed of g/dt
-   (Firth, "Speculative Contacts", 2011), so a fast body arrives just touching.
-4. *Relax* (``relax_iterations``) without the bias, which takes the push velocity out again.
+   impulse scale from ``spring_frequency``, capped at half the step rate, ``spring_damping_ratio``
+   and dt); overlap beyond ``overlap_allowance`` is pushed out at the bias rate, the push speed capped
+   at ``separation_speed_cap``. A speculative row (gap g > 0) is rigid and allows a closing speed of g/dt
+   (speculative contacts, common practice), so a fast body arrives just touching.
+4. *Relax* (``bias_free_passes``) without the bias, which takes the push velocity out again.
 5. *Restitution*, one pass: rows whose normal approach speed before the solve exceeded
-   ``restitution_threshold`` and that took a normal impulse get a separating speed of e times it.
+   ``bounce_threshold`` and that took a normal impulse get a separating speed of e times it.
    A speculative row that took no impulse (the bodies do not meet within the step) never bounces;
    one that did bounces at its time of impact: the bodies are moved apart by (1 + e) times the
    gap along the normal, where the bounce leaves them.
 6. *Position push*: positions and rotors are moved by dt times (velocity after step 3 minus the
-   velocity after step 4), so that together with ``integrate_positions`` the bodies move with the
+   velocity after step 4), so that together with ``advance_poses`` the bodies move with the
    biased velocity, as in the soft step, while the velocities they keep carry no push (the push
    adds no kinetic energy). Our pipeline integrates positions after the solver, so this
    displacement is applied here. Rows that do not overlap are rigid in step 3 too, so where
@@ -90,7 +92,7 @@ response (the change of X per unit impulse) are (n, n + k) arrays built once per
 iteration of a batch is a gather, a few einsums and a scatter.
 
 Cost (measured on one core with a settled ``pile`` 4-D of 300 bodies, 3,314 rows, and a 2-D
-``pyramid`` of base 100, 29,900 rows; ``solve_contacts`` alone on a pickled snapshot, same
+``pyramid`` of base 100, 29,900 rows; ``solve_impulses`` alone on a pickled snapshot, same
 output to the bit before and after each change):
 
 * Where the time goes. The pile needs 59 colours, which is the largest number of rows on one
@@ -101,7 +103,7 @@ output to the bit before and after each change):
 * Kept: each batch holds views of the sorted per-row arrays (no per-pass slicing of a dozen
   arrays); the pair states are gathered with ``take`` through flat element indices and written
   back by a flat index (2-D, 1,000 rows: 3.0 us against 18.5 us to gather with an (m, 2) index,
-  6.4 us against 20 us to write); relaxed passes skip the keep factor and a zero bias; the cone
+  6.4 us against 20 us to write); bias-free passes skip the keep factor and a zero bias; the cone
   clamp and the kinetic "follow the slip" branch run only in batches where some row leaves its
   cone or slid; the largest normal impulse is tracked only in batches that may bounce; no
   split counts (a sort) under point batching; leaner colouring and tangent basis. Solve time
@@ -187,10 +189,16 @@ def _wedge_rows(alg: Algebra, r: Array, D: Array) -> Array:
 
 
 def soft_coefficients(hertz: float, damping_ratio: float, dt: float) -> tuple[float, float, float]:
-    """(bias rate 1/s, mass scale, impulse scale) of a soft constraint (Catto, "Soft Constraints").
+    """(bias rate 1/s, mass scale, impulse scale) of a soft constraint (an implicit spring-damper).
 
     With w = 2 pi f and z the damping ratio: bias rate w / (2 z + h w), mass scale
     h w (2 z + h w) / (1 + h w (2 z + h w)), impulse scale 1 / (1 + h w (2 z + h w)).
+
+    Derivation (backward Euler on a spring-damper, common practice): a unit-mass oscillator
+    x'' = -w^2 x - 2 z w x' stepped implicitly, v2 = v1 - h (w^2 x2 + 2 z w v2) with
+    x2 = x1 + h v2, gives v2 (1 + 2 z w h + h^2 w^2) = v1 - h w^2 x1. Written as a constraint
+    impulse on the rigid row (target speed -bias * x, effective mass m), the solved impulse is
+    ``mass_scale * m * (-v - bias x) - impulse_scale * accumulated``.
     """
     w = 2.0 * np.pi * hertz
     a = dt * w * (2.0 * damping_ratio + dt * w)
@@ -312,7 +320,7 @@ def _pair_keys(bodies: Bodies, c: ContactSet) -> IntArray:
     return (h[c.body_a].astype(np.int64) << np.int64(32)) | h[c.body_b].astype(np.int64)
 
 
-def solve_contacts(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
+def solve_impulses(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
                    caches: dict[str, Any]) -> None:
     """Resolve the contact rows of one step: update velocities (and push positions) in place.
 
@@ -490,15 +498,16 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     depth = c.depth[ridx]
     sep = -depth
     spec = sep > 0.0
-    hertz = min(float(settings.contact_hertz), HERTZ_CAP / dt)
-    rate, mscale, iscale = soft_coefficients(hertz, float(settings.contact_damping_ratio), dt)
-    push = np.maximum(rate * np.minimum(sep + settings.linear_slop, 0.0), -settings.max_push_speed)
+    hertz = min(float(settings.spring_frequency), HERTZ_CAP / dt)
+    rate, mscale, iscale = soft_coefficients(hertz, float(settings.spring_damping_ratio), dt)
+    push = np.maximum(rate * np.minimum(sep + settings.overlap_allowance, 0.0),
+                      -settings.separation_speed_cap)
     bias_on = np.where(spec, sep / dt, push)
     # every overlapping row is soft in the biased pass (rejected: rigid rows within the slop,
     # which toggle between rigid and soft as the depth crosses the slop and measured as jitter in
     # a 3-D stack of ten: residual kinetic energy ~40 J against ~0.01 J). Rows exactly touching
     # (depth 0, where a speculative contact delivers a body) stay rigid: there the biased and
-    # relaxed velocities agree, nothing is pushed, and free collisions conserve momentum exactly.
+    # unbiased velocities agree, nothing is pushed, and free collisions conserve momentum exactly.
     soft = depth > 0.0
     keep_on = 1.0 - np.where(soft, iscale * unsplit, 0.0)
     gain_on = mass_n * np.where(soft, mscale, 1.0)
@@ -529,17 +538,17 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     # rows that may bounce: restitution, and approaching faster than the threshold before the solve;
     # only their largest normal impulse is needed (did they meet within the step?)
     e = c.restitution[ridx]
-    may_bounce = (e > 0.0) & (vn0 < -settings.restitution_threshold)
+    may_bounce = (e > 0.0) & (vn0 < -settings.bounce_threshold)
     batches = [_Batch(batching, s, a, b, man, el, G, H, K01, Kt_inv, mu, slides, lam_n, lam_t, max_n,
                       bias_on, keep_on, gain_on, bias_off, mass_n, may_bounce) for s in slices]
     Xf = X.reshape(-1)  # a view: the batches read and write X through it
 
-    iters = int(settings.velocity_iterations)
-    relax = int(settings.relax_iterations)
+    iters = int(settings.solver_passes)
+    bias_free = int(settings.bias_free_passes)
     for _ in range(iters):
         _sweep(batches, Xf, X, True)
     X_biased = X.copy()
-    for _ in range(relax):
+    for _ in range(bias_free):
         _sweep(batches, Xf, X, False)
     # a manifold slides (kinetic friction next step) when its total friction is at its limit and
     # it still slips after the solve; one that friction stopped, or that is inside the cone,
@@ -553,7 +562,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     limit = np.bincount(man_id, mu * lam_n, n_man)
     at_limit = total_t >= (1.0 - 1e-3) * limit  # every point of the manifold on its cone
     sliding_now = (at_limit & (limit > 0.0) & (max_slip2 > _SLIP_SPEED ** 2))[man_id]
-    # the push: what the bias moved, taken out of the velocities by the relax pass
+    # the push: what the bias moved, taken out of the velocities by the bias-free pass
     moved = np.nonzero(dyn)[0]
     push_dX = dt * (X_biased[moved] - X[moved])
 
@@ -633,7 +642,7 @@ class _Batch:
         self.lam_n, self.lam_t, self.max_n = lam_n[s], lam_t[s], max_n[s]
         self.track_max = bool(np.any(may_bounce[s]))
         self.bias_on, self.keep_on, self.gain_on = bias_on[s], keep_on[s], gain_on[s]
-        # the relaxed pass has keep = 1 and, without speculative rows, no bias at all
+        # the bias-free pass has keep = 1 and, without speculative rows, no bias at all
         self.bias_off = bias_off[s] if np.any(bias_off[s] != 0.0) else None
         self.gain_off = gain_off[s]
         if batching != "point":
@@ -661,7 +670,7 @@ def _sweep(batches: list[_Batch], Xf: Array, X: Array, biased: bool) -> None:
 
     Normal row: new lambda_n = max(keep lambda_n - gain (v_n + bias), 0) with keep = 1 - impulse
     scale and gain = mass scale x normal mass in the biased pass, keep = 1 and gain = normal mass
-    in the relaxed one. Then friction, which sees this iteration's load.
+    in the bias-free one. Then friction, which sees this iteration's load.
     """
     for bt in batches:
         Xab0 = Xf.take(bt.el).reshape(bt.shape)
@@ -727,5 +736,5 @@ def _push_positions(alg: Algebra, bodies: Bodies, rows: IntArray, dX: Array) -> 
     bodies.position[r] = com - np.einsum("nij,nj->ni", Mx, c_local)
 
 
-__all__ = ["BATCHINGS", "DEFAULT_BATCHING", "colour_items", "soft_coefficients", "solve_contacts",
+__all__ = ["BATCHINGS", "DEFAULT_BATCHING", "colour_items", "soft_coefficients", "solve_impulses",
            "tangent_basis"]

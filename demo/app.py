@@ -115,7 +115,7 @@ class App:
         self._spring()
         self.world.step(1.0 / 60.0 if self.headless else seconds)
         self.t += 1.0 / 60.0
-        self.step_times.append(float(self.sim.profile.total))
+        self.step_times.append(float(self.sim.timings.total))
 
     def _spring(self) -> None:
         """A damped spring from the grabbed point to the mouse, plus the body's weight (so it holds)."""
@@ -466,7 +466,7 @@ class App:
         first = self.dim - len(self.offsets)
         sl = "  ".join(f"{names % (first + i)}={v:+.2f}" for i, v in enumerate(self.offsets))
         fps = "headless" if self.headless else f"{self.clock_fps:5.1f} fps"
-        text = (f"{fps}   step {1e3 * sim.profile.total:5.2f} ms   bodies {sim.count}   "
+        text = (f"{fps}   step {1e3 * sim.timings.total:5.2f} ms   bodies {sim.count}   "
                 f"contacts {contacts}   {self.dim}-D   slice {sl or 'none (whole world)'}"
                 f"{'   PAUSED' if self.paused else ''}")
         bar = self.pg.Surface((self.size[0], self.font.get_height() + 8))

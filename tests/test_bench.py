@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 
 import pytest
-
 from ndrigid.bench.__main__ import main
 from ndrigid.bench.scenes import SCENES
 

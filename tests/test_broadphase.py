@@ -48,7 +48,7 @@ def _reference_fat(sim: Simulation) -> np.ndarray:
     reach = b.radius + np.linalg.norm(b.local_centroid, axis=1)
     reach = np.where(np.isfinite(reach), reach, 0.0)
     speed = np.linalg.norm(b.velocity, axis=1) + np.linalg.norm(b.angular_velocity, axis=1) * reach
-    return max(s.aabb_margin, s.speculative_distance / 2) + DT * speed
+    return max(s.broadphase_margin, s.speculative_margin / 2) + DT * speed
 
 
 def _reference_pairs(sim: Simulation) -> set[tuple[int, int]]:
@@ -124,7 +124,7 @@ def test_pairs_equal_brute_force_on_random_scenes(dim: int, rng: np.random.Gener
     """Mixed shapes, static/kinematic/asleep bodies, random layers and masks, two half-spaces."""
     count = 2000 if dim <= 3 else 1200
     sim = _random_scene(dim, count, rng)
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     got = set(map(tuple, pairs.tolist()))
     assert len(got) == len(pairs)  # no duplicates
     assert np.all(pairs[:, 0] < pairs[:, 1])
@@ -172,16 +172,16 @@ def test_grid_and_sweep_and_prune_agree_with_brute_force(dim: int, shift: float,
 @dims()
 def test_fast_body_is_paired_through_its_swept_box(dim: int) -> None:
     """A ball 1.5 m from a wall at 100 m/s reaches it within a 1/60 s step (x + v dt; speculative
-    contacts, Firth 2011): paired; at rest it is not (common practice)."""
+    contacts, common practice): paired; at rest it is not (common practice)."""
     sim = Simulation(dim)
     sim.add_body(Box(np.full(dim, 0.5)), kind="static")
     p = np.zeros(dim)
     p[0] = 2.25
     fast = sim.add_body(Ball(dim, 0.25), position=p, velocity=-100.0 * np.eye(dim)[0])
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     assert pairs.tolist() == [[0, 1]]
     sim.set_velocity(fast, np.zeros(dim))
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     assert pairs.tolist() == []
 
 
@@ -207,7 +207,7 @@ def test_activity_filter(kind_a: str, kind_b: str, asleep_a: bool, asleep_b: boo
     sim.add_body(Ball(3, 0.5), kind=kind_a)
     sim.add_body(Ball(3, 0.5), kind=kind_b, position=[0.8, 0, 0], sensor=sensor_b)
     sim.bodies.awake[:] = [not asleep_a, not asleep_b]
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     assert (len(pairs) == 1) == expected
 
 
@@ -220,15 +220,15 @@ def test_layer_mask_rule(layer_a: int, mask_a: int, layer_b: int, mask_b: int, e
     sim = Simulation(2)
     sim.add_body(Ball(2, 0.5), layer=layer_a, mask=mask_a)
     sim.add_body(Ball(2, 0.5), position=[0.8, 0], layer=layer_b, mask=mask_b)
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     assert (len(pairs) == 1) == expected
 
 
-def test_margin_covers_speculative_distance() -> None:
-    """With aabb_margin below speculative_distance / 2 the boxes still grow by half the speculative
+def test_margin_covers_speculative_margin() -> None:
+    """With broadphase_margin below speculative_margin / 2 the boxes still grow by half the speculative
     distance, so two balls 0.09 m apart (gap < 0.1 m) are paired."""
-    sim = Simulation(2, settings=Settings(aabb_margin=0.0, speculative_distance=0.1))
+    sim = Simulation(2, settings=Settings(broadphase_margin=0.0, speculative_margin=0.1))
     sim.add_body(Ball(2, 0.5))
     sim.add_body(Ball(2, 0.5), position=[1.09, 0.0])
-    pairs = bp.update_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
+    pairs = bp.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, DT)
     assert pairs.tolist() == [[0, 1]]

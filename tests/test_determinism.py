@@ -7,7 +7,6 @@ import hashlib
 
 import numpy as np
 from conftest import dims
-
 from ndrigid.bench.scenes import build_pile
 
 

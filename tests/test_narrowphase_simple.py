@@ -10,7 +10,7 @@ References:
   itertools.product independently of the kernel's bit order;
 * ball/box closest point: scipy.optimize.minimize (L-BFGS-B over the box coordinates) for a centre
   outside; for a centre inside, the penetration is the distance to the nearest face (closed form);
-* speculative contacts: kept while the gap is below the margin (Firth, "Speculative Contacts", 2011).
+* speculative contacts: kept while the gap is below the margin (speculative contacts, common practice).
 """
 
 from __future__ import annotations
@@ -39,8 +39,8 @@ def _up(n: int) -> np.ndarray:
 
 def _collide(sim: Simulation, dt: float = DT) -> tuple[ContactSet, np.ndarray, np.ndarray]:
     b = sim.bodies
-    pairs = bp.update_pairs(sim.alg, b, sim.info.shapes, sim.settings, sim.caches, dt)
-    return nph.collide(sim.alg, b, pairs, sim.info.shapes, sim.settings, sim.caches, dt)
+    pairs = bp.find_pairs(sim.alg, b, sim.info.shapes, sim.settings, sim.caches, dt)
+    return nph.find_contacts(sim.alg, b, pairs, sim.info.shapes, sim.settings, sim.caches, dt)
 
 
 def _oriented(c: ContactSet, a: int, b: int) -> tuple[np.ndarray, np.ndarray]:
@@ -102,7 +102,7 @@ def test_tilted_box_on_tilted_plane_matches_brute_force_corners(dim: int, rng: n
     c, _, _ = _collide(sim)
     corners = pos + _corners(h) @ M.T
     height = corners @ uw - dw
-    margin = sim.settings.speculative_distance
+    margin = sim.settings.speculative_margin
     within = np.sort(-height[height < margin])[::-1]
     cap = min(2 ** (dim - 1), 8)
     assert c.count == min(cap, within.size)
@@ -258,7 +258,7 @@ def test_polytope_on_plane_matches_brute_force_vertices(dim: int, rng: np.random
     c, touching, _ = _collide(sim)
     world = pos + np.asarray(shape.vertices) @ M.T
     height = world[:, 1]
-    want = sorted(np.round(-height[height < sim.settings.speculative_distance], 12).tolist())
+    want = sorted(np.round(-height[height < sim.settings.speculative_margin], 12).tolist())
     assert sorted(np.round(c.depth, 12).tolist()) == want[-min(len(want), 8):]
     assert touching.tolist() == ([[0, 1]] if height.min() <= 0 else [])
     np.testing.assert_allclose(c.feature, [int(np.argmin(np.abs(height + d))) for d in c.depth])

@@ -34,8 +34,8 @@ from ndrigid.core.contacts import ContactSet
 from ndrigid.core.errors import InputTypeError
 from ndrigid.core.reference import (
     collide_reference,
-    solve_contacts_reference,
-    update_pairs_reference,
+    find_pairs_reference,
+    solve_impulses_reference,
     use_reference_stages,
 )
 from ndrigid.core.shapes import Ball, Box, Compound, HalfSpace
@@ -117,8 +117,8 @@ def test_pairs_equal_all_pairs_test_with_filters(dim: int, rng: np.random.Genera
     b.awake[5] = False
     for _ in range(3):  # a few random configurations of the same bodies
         b.position[:-1] = rng.uniform(-1.2, 1.2, size=(b.count - 1, dim))
-        pv = broadphase.update_pairs(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
-        pr = update_pairs_reference(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
+        pv = broadphase.find_pairs(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
+        pr = find_pairs_reference(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
         np.testing.assert_array_equal(pv, pr)
         assert len(pv) > 0
 
@@ -134,8 +134,8 @@ def test_contacts_equal_on_random_pairs(dim: int, rng: np.random.Generator) -> N
     for _ in range(12 if dim < 5 else 6):
         sim = random_scene(dim, rng)
         b = sim.bodies
-        pairs = broadphase.update_pairs(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
-        cv, tv, sv = narrowphase.collide(sim.alg, b, pairs, sim.info.shapes, sim.settings, {}, DT)
+        pairs = broadphase.find_pairs(sim.alg, b, sim.info.shapes, sim.settings, {}, DT)
+        cv, tv, sv = narrowphase.find_contacts(sim.alg, b, pairs, sim.info.shapes, sim.settings, {}, DT)
         cr, tr, sr = collide_reference(sim.alg, b, pairs, sim.info.shapes, sim.settings, {}, DT)
         np.testing.assert_array_equal(tv, tr)
         np.testing.assert_array_equal(sv, sr)
@@ -249,13 +249,13 @@ def check_lockstep(dim: int, build, steps: int, settings: Settings) -> None:
             if name not in _REFERENCE_STAGES:
                 continue
             _REFERENCE_STAGES[name](ref, DT)
-            if name == "update_pairs":
+            if name == "find_pairs":
                 np.testing.assert_array_equal(vec.pairs, ref.pairs)
-            elif name == "collide":
+            elif name == "find_contacts":
                 m, _ = assert_same_contacts(vec.contacts, ref.contacts)
                 assert vec.events == ref.events
                 saw_contacts += vec.contacts.count
-            elif name == "solve_contacts":
+            elif name == "solve_impulses":
                 m = np.stack([np.arange(vec.contacts.count)] * 2, axis=1)
                 saw_push += assert_same_impulses(vec, ref, m)
             assert_same_bodies(vec, ref)
@@ -286,14 +286,14 @@ def check_free_run(dim: int, build, steps: int, settings: Settings) -> None:
 @dims()
 def test_stages_agree_in_lockstep(dim: int, scene: str) -> None:
     """Six steps of each small scene, stage by stage, with the default (point) batching."""
-    check_lockstep(dim, SCENES[scene], 6, Settings(allow_sleep=False))
+    check_lockstep(dim, SCENES[scene], 6, Settings(sleep_enabled=False))
 
 
 @pytest.mark.parametrize("batching", ["manifold", "jacobi"])
 @dims(3, 4)
 def test_lockstep_for_the_other_batchings(dim: int, batching: str) -> None:
     """Colour by manifold with mass splitting inside one, and one Jacobi batch."""
-    check_lockstep(dim, scene_stack, 4, Settings(allow_sleep=False, solver_batching=batching))
+    check_lockstep(dim, scene_stack, 4, Settings(sleep_enabled=False, solver_batching=batching))
 
 
 @pytest.mark.parametrize("scene", list(SCENES))
@@ -301,7 +301,7 @@ def test_lockstep_for_the_other_batchings(dim: int, batching: str) -> None:
 def test_free_runs_agree(dim: int, scene: str) -> None:
     """Six whole steps on each path with the default point batching: the same keys, hence the same
     salted batch order, every step (module notes)."""
-    check_free_run(dim, SCENES[scene], 6, Settings(allow_sleep=False))
+    check_free_run(dim, SCENES[scene], 6, Settings(sleep_enabled=False))
 
 
 def test_solve_without_contacts_resets_the_cache() -> None:
@@ -309,7 +309,7 @@ def test_solve_without_contacts_resets_the_cache() -> None:
     sim = Simulation(3)
     sim.add_body(Ball(3, 0.5), velocity=[1.0, 0.0, 0.0])
     sim.caches["solver"] = {"key": np.array([1])}
-    solve_contacts_reference(sim.alg, sim.bodies, None, DT, sim.settings, sim.caches)
+    solve_impulses_reference(sim.alg, sim.bodies, None, DT, sim.settings, sim.caches)
     assert sim.caches["solver"]["key"].size == 0
     np.testing.assert_array_equal(sim.velocity(0), [1.0, 0.0, 0.0])
 
@@ -319,6 +319,7 @@ def test_use_reference_stages_keeps_names_and_rejects_non_simulations() -> None:
     names = [name for name, _ in sim.stages]
     use_reference_stages(sim)
     assert [name for name, _ in sim.stages] == names
-    assert all(fn.__module__ == "ndrigid.core.reference" for name, fn in sim.stages if name != "update_sleep")
+    assert all(fn.__module__ == "ndrigid.core.reference"
+               for name, fn in sim.stages if name != "settle_islands")
     with pytest.raises(InputTypeError, match="sim: expected a Simulation"):
         use_reference_stages(object())

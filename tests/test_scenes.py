@@ -40,7 +40,7 @@ def incline(dim: int, theta: float, shape: str, mu_k: float, mu_s: float):
     """A static half-space tilted by theta in the e0-e1 plane and a unit body resting on it.
 
     Returns (sim, handle, downhill unit vector)."""
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     B = np.zeros(sim.alg.k)
     B[0] = theta  # plane (0, 1): turns e0 toward e1
     R = sim.alg.rotor(B)
@@ -106,7 +106,7 @@ def test_bounce_heights_follow_restitution(dim):
     by about (1 + e) g dt, both proportional to dt (at 60 Hz: 4-10% per bounce); at 960 Hz the
     third bounce is within ~1%."""
     e, h, r = 0.8, 1.0, 0.1
-    sim = Simulation(dim, settings=Settings(dt=1.0 / 960.0, allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(dt=1.0 / 960.0, sleep_enabled=False))
     up = up_vector(dim)
     sim.add_body(HalfSpace(up, 0.0), kind="static")
     ball = sim.add_body(Ball(dim, r), position=(h + r) * up, restitution=e, friction=0.0)
@@ -192,8 +192,8 @@ def test_stack_of_ten_rests(dim):
     """Ten unit boxes stacked at 60 Hz, sleeping off: after the soft contacts settle (1 s), the top
     box moves less than 1% of its size over 10 s and the kinetic energy stays below 1 mJ per kg
     (common practice: a resting stack must not jitter or creep)."""
-    iterations = _STACK_ITERATIONS.get(dim, Settings().velocity_iterations)
-    sim = Simulation(dim, settings=Settings(allow_sleep=False, velocity_iterations=iterations))
+    iterations = _STACK_ITERATIONS.get(dim, Settings().solver_passes)
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False, solver_passes=iterations))
     up = up_vector(dim)
     sim.add_body(HalfSpace(up, 0.0), kind="static")
     top = -1
@@ -217,9 +217,9 @@ def test_resting_stack_keeps_feature_ids_regression(dim):
     step, as an incident corner and a reference corner at the same place carried different ids and
     rounding chose one): five boxes resting on a floor, after a 1 s settle, keep their contact keys,
     fewer than 1 % of the keys being new from one step to the next over 1 s (common practice: warm
-    starting needs feature ids that persist while the same features touch; Catto, "Iterative
-    Dynamics with Temporal Coherence", GDC 2005)."""
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    starting needs feature ids that persist while the same features touch; warm starting,
+    common practice)."""
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     up = up_vector(dim)
     sim.add_body(HalfSpace(up, 0.0), kind="static")
     for level in range(5):
@@ -242,7 +242,7 @@ def test_resting_stack_keeps_feature_ids_regression(dim):
 def test_pyramid_stands(dim):
     """A pyramid with a base of ten unit boxes (55 boxes) stands for 10 s at 60 Hz: after 1 s of
     settling no box moves more than 5% of its size (common practice)."""
-    sim = Simulation(dim, settings=Settings(allow_sleep=False))
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     up = up_vector(dim)
     sim.add_body(HalfSpace(up, 0.0), kind="static")
     handles = []
@@ -270,7 +270,7 @@ def test_pyramid_stands(dim):
 @pytest.mark.parametrize("shape", ["ball", "box"])
 def test_fast_body_does_not_tunnel_through_thin_slab(dim, shape):
     """50 m/s against a 5 cm static slab at 60 Hz (83 cm per step): the speculative contact stops
-    the body on the near side (Firth, "Speculative Contacts", 2011)."""
+    the body on the near side (speculative contacts, common practice)."""
     sim = Simulation(dim, gravity=np.zeros(dim))
     up = up_vector(dim)
     sim.add_body(Box(np.r_[2.0, 0.025, [2.0] * (dim - 2)]), kind="static")
@@ -289,7 +289,7 @@ def test_fast_body_does_not_tunnel_through_thin_slab(dim, shape):
 
 @dims()
 def test_resting_body_sleeps_and_wakes(dim):
-    """A box at rest on a static slab sleeps after sleep_time, wakes on apply_impulse, sleeps again,
+    """A box at rest on a static slab sleeps after rest_time, wakes on apply_impulse, sleeps again,
     and wakes and falls when its support is removed (common practice)."""
     sim = Simulation(dim)
     up = up_vector(dim)
@@ -306,7 +306,7 @@ def test_resting_body_sleeps_and_wakes(dim):
 
     n_steps = steps_until_asleep(3.0)
     assert n_steps > 0
-    assert n_steps * st.dt >= st.sleep_time
+    assert n_steps * st.dt >= st.rest_time
     assert np.all(sim.velocity(box) == 0.0)
     sim.apply_impulse(box, 3000.0 * up)  # 3 m/s on the 1000 kg box
     assert sim.is_awake(box)
@@ -321,7 +321,7 @@ def test_resting_body_sleeps_and_wakes(dim):
 
 
 def test_sleeping_settings_stop_sleep():
-    sim = Simulation(3, settings=replace(Settings(), allow_sleep=False))
+    sim = Simulation(3, settings=replace(Settings(), sleep_enabled=False))
     sim.add_body(HalfSpace(up_vector(3), 0.0), kind="static")
     b = sim.add_body(Ball(3, 0.5), position=0.5 * up_vector(3))
     for _ in range(90):

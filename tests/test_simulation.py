@@ -129,7 +129,7 @@ def test_bad_input_raises_and_leaves_state_unchanged(dim: int, rng: np.random.Ge
         (lambda: sim.remove_body(10_000), "handle"),
         (lambda: sim.remove_body(-1), "handle"),
         (lambda: sim.with_settings(dt=0.0), "settings.dt"),
-        (lambda: sim.with_settings(velocity_iterations=0), "settings.velocity_iterations"),
+        (lambda: sim.with_settings(solver_passes=0), "settings.solver_passes"),
     ]
     for call, word in bad_calls:
         with pytest.raises((InputError, InputTypeError)) as info:
@@ -170,6 +170,6 @@ def test_step_profile_names_every_stage(dim: int) -> None:
     sim.add_body(Ball(dim, 0.5))
     sim.step()
     names = [name for name, _ in sim.stages]
-    assert list(sim.profile.stages) == names
-    assert names[0] == "integrate_velocities" and "integrate_positions" in names
-    assert sim.profile.total >= sum(sim.profile.stages.values()) * 0.999
+    assert list(sim.timings.stages) == names
+    assert names[0] == "accelerate" and "advance_poses" in names
+    assert sim.timings.total >= sum(sim.timings.stages.values()) * 0.999

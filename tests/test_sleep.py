@@ -1,7 +1,7 @@
 """Tests of islands, sleeping and waking (``core/sleep.py``) on contact sets built by hand.
 
 References: connected components checked against a brute-force breadth-first search; the sleep
-rule itself (an island sleeps when every member has rested for ``sleep_time``; any disturbance
+rule itself (an island sleeps when every member has rested for ``rest_time``; any disturbance
 wakes the whole island) is the common practice of game physics engines (common practice).
 Scenes through the Simulation are in ``test_scenes.py``.
 """
@@ -17,7 +17,7 @@ from conftest import dims
 from ndrigid.core.contacts import ContactSet, contact_keys
 from ndrigid.core.shapes import Ball, Box
 from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.sleep import body_speeds, island_labels, update_sleep, wake_touched
+from ndrigid.core.sleep import body_speeds, island_labels, settle_islands, wake_touched
 
 DT = 1.0 / 60.0
 
@@ -68,7 +68,7 @@ def brute_components(n_nodes: int, edges: list[tuple[int, int]]) -> list[set[int
 
 
 def sleep_step(sim: Simulation, c: ContactSet | None) -> None:
-    update_sleep(sim.alg, sim.bodies, c, DT, sim.settings, sim.caches)
+    settle_islands(sim.alg, sim.bodies, c, DT, sim.settings, sim.caches)
 
 
 @dims()
@@ -100,14 +100,14 @@ def test_body_speed_is_linear_plus_angular_times_radius(dim, rng):
 
 
 @dims()
-def test_resting_island_sleeps_after_sleep_time(dim):
-    """Every member rests: the island sleeps on the step where the rest time reaches sleep_time,
+def test_resting_island_sleeps_after_rest_time(dim):
+    """Every member rests: the island sleeps on the step where the rest time reaches rest_time,
     not before; sleeping bodies have zero velocity (common practice)."""
     sim = world(dim, 3)
     c = pairs_set(sim, [0, 1, 2], [1, 2, 3])
     bd = sim.bodies
-    bd.velocity[1:, 0] = 0.5 * sim.settings.sleep_linear_speed
-    steps = int(np.ceil(sim.settings.sleep_time / DT - 1e-9))
+    bd.velocity[1:, 0] = 0.5 * sim.settings.rest_speed
+    steps = int(np.ceil(sim.settings.rest_time / DT - 1e-9))
     for _ in range(steps - 1):
         sleep_step(sim, c)
     assert np.all(bd.awake[1:])
@@ -121,8 +121,8 @@ def test_one_moving_member_keeps_the_island_awake(dim):
     sim = world(dim, 3)
     c = pairs_set(sim, [1, 2], [2, 3])
     bd = sim.bodies
-    bd.velocity[3, 0] = 2.0 * sim.settings.sleep_linear_speed
-    for _ in range(int(2 * sim.settings.sleep_time / DT)):
+    bd.velocity[3, 0] = 2.0 * sim.settings.rest_speed
+    for _ in range(int(2 * sim.settings.rest_time / DT)):
         sleep_step(sim, c)
     assert np.all(bd.awake[1:])
 
@@ -135,7 +135,7 @@ def test_contact_with_awake_body_wakes_the_whole_island(dim):
     bd = sim.bodies
     sleep_step(sim, None)  # no contacts yet
     chain = pairs_set(sim, [1, 2], [2, 3])
-    for _ in range(int(np.ceil(sim.settings.sleep_time / DT)) + 1):
+    for _ in range(int(np.ceil(sim.settings.rest_time / DT)) + 1):
         sleep_step(sim, chain)
     assert not np.any(bd.awake[1:4]) and not bd.awake[4]
     bd.awake[4] = True
@@ -151,7 +151,7 @@ def test_removed_support_wakes_the_island(dim):
     sim = world(dim, 2)
     bd = sim.bodies
     c = pairs_set(sim, [0, 1], [1, 2])
-    for _ in range(int(np.ceil(sim.settings.sleep_time / DT)) + 1):
+    for _ in range(int(np.ceil(sim.settings.rest_time / DT)) + 1):
         sleep_step(sim, c)
     assert not np.any(bd.awake[1:])
     sim.remove_body(int(bd.handle[0]))  # the floor; the last ball moves into row 0
@@ -161,8 +161,8 @@ def test_removed_support_wakes_the_island(dim):
 
 @dims()
 def test_sleep_disabled(dim):
-    sim = world(dim, 2, replace(Settings(), allow_sleep=False))
+    sim = world(dim, 2, replace(Settings(), sleep_enabled=False))
     c = pairs_set(sim, [0, 1], [1, 2])
-    for _ in range(int(2 * sim.settings.sleep_time / DT)):
+    for _ in range(int(2 * sim.settings.rest_time / DT)):
         sleep_step(sim, c)
     assert np.all(sim.bodies.awake)

@@ -15,8 +15,8 @@ References (named again beside each check):
   the normal impulse (Halliday, Resnick and Walker); a ball brought to rolling by a tangential
   impulse keeps ``v / (1 + I / (m r^2))`` of its speed (impulse-momentum with the no-slip
   condition), with the n-ball plane inertia ``2 m r^2 / (n + 2)``.
-* Speculative contacts: the closing speed is limited to gap/dt (Firth, "Speculative Contacts",
-  2011).
+* Speculative contacts: the closing speed is limited to gap/dt (speculative contacts,
+  common practice).
 * Statics of a vertical column: each contact carries the weight of the bodies above it
   (free-body diagram, Halliday, Resnick and Walker).
 * Graph colouring: checked by brute force (no body twice in a colour; every later item conflicts
@@ -34,7 +34,7 @@ from ndrigid.core.algebra import skew, unskew
 from ndrigid.core.contacts import ContactSet, combine_friction, combine_restitution, contact_keys
 from ndrigid.core.shapes import Ball, Box
 from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.solver import colour_items, solve_contacts, tangent_basis
+from ndrigid.core.solver import colour_items, solve_impulses, tangent_basis
 
 DT = 1.0 / 60.0
 
@@ -60,7 +60,7 @@ def contacts_for(sim: Simulation, a, b, normal, point, depth, feature=None, mani
 
 
 def solve(sim: Simulation, c: ContactSet, dt: float = DT) -> None:
-    solve_contacts(sim.alg, sim.bodies, c, dt, sim.settings, sim.caches)
+    solve_impulses(sim.alg, sim.bodies, c, dt, sim.settings, sim.caches)
 
 
 def point_velocity(sim: Simulation, row: int, x) -> np.ndarray:
@@ -158,7 +158,7 @@ def test_elastic_frictionless_contact_conserves_energy_and_momentum(dim, rng):
     sim.bodies.velocity[1, 0] = -4.0
     e0, p0, L0 = sim.kinetic_energy(), sim.linear_momentum(), sim.angular_momentum()
     un0 = d @ (point_velocity(sim, 1, x) - point_velocity(sim, 0, x))
-    assert un0 < -sim.settings.restitution_threshold
+    assert un0 < -sim.settings.bounce_threshold
     solve(sim, contacts_for(sim, [0], [1], d, x, [0.0]))
     un1 = d @ (point_velocity(sim, 1, x) - point_velocity(sim, 0, x))
     assert un1 == pytest.approx(-un0, rel=1e-9)
@@ -191,10 +191,10 @@ def floor_contact(sim: Simulation, depth: float = 0.0, normal=None) -> ContactSe
 
 
 @dims()
-def test_restitution_threshold(dim):
-    """Approach slower than restitution_threshold: no bounce; faster: bounce with e (Newton)."""
+def test_bounce_threshold(dim):
+    """Approach slower than bounce_threshold: no bounce; faster: bounce with e (Newton)."""
     sim = ball_on_floor(dim, restitution=0.5, friction=0.0)
-    thr = sim.settings.restitution_threshold
+    thr = sim.settings.bounce_threshold
     sim.bodies.velocity[1, 1] = -0.5 * thr
     solve(sim, floor_contact(sim))
     assert abs(sim.bodies.velocity[1, 1]) < 1e-12
@@ -262,7 +262,7 @@ def test_static_then_kinetic_friction(dim):
 @dims()
 def test_speculative_contact_limits_closing_speed(dim):
     """A gap g closes at most at g/dt; a body that cannot reach the surface in the step is left
-    alone (Firth, "Speculative Contacts")."""
+    alone (speculative contacts, common practice)."""
     gap = 0.05
     sim = ball_on_floor(dim, friction=0.0)
     bd = sim.bodies
@@ -278,7 +278,8 @@ def test_speculative_contact_limits_closing_speed(dim):
 @dims()
 def test_speculative_contact_without_impulse_does_not_bounce(dim):
     """Restitution only for rows that took an impulse: a bouncy ball passing near a surface it
-    does not reach within the step keeps its velocity (Firth; Newton's law applies at impact)."""
+    does not reach within the step keeps its velocity (speculative contacts, common practice;
+    Newton's law applies at impact)."""
     sim = ball_on_floor(dim, friction=0.0, restitution=1.0)
     bd = sim.bodies
     bd.velocity[1, 1] = -2.0
@@ -297,10 +298,10 @@ def test_overlap_push_adds_no_kinetic_energy(dim):
     solve(sim, floor_contact(sim, depth=depth))
     assert sim.kinetic_energy() < 1e-20
     dy = bd.position[1, 1] - y0
-    assert 0.0 < dy <= sim.settings.max_push_speed * DT + 1e-12
+    assert 0.0 < dy <= sim.settings.separation_speed_cap * DT + 1e-12
     # within the slop: nothing moves
     y1 = bd.position[1, 1]
-    solve(sim, floor_contact(sim, depth=0.5 * sim.settings.linear_slop))
+    solve(sim, floor_contact(sim, depth=0.5 * sim.settings.overlap_allowance))
     assert bd.position[1, 1] == y1
 
 
@@ -342,7 +343,7 @@ def test_column_statics_all_batchings(dim, batching):
     """A column of 4 unit masses under gravity: contact j (from the top) carries j m g dt per step
     (free-body diagram); every batching reaches it, warm started over a few steps."""
     count = 4
-    st = replace(Settings(), solver_batching=batching, velocity_iterations=8, relax_iterations=3)
+    st = replace(Settings(), solver_batching=batching, solver_passes=8, bias_free_passes=3)
     sim, c = ball_column(dim, count, st)
     bd = sim.bodies
     g = 9.81
