@@ -46,8 +46,8 @@ from typing import Any, Generic, NamedTuple, TypeVar
 
 import numpy as np
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.components import ALL_LAYERS, KIND_NAMES, STATIC
 from ndrigid.core.errors import InputError, InputTypeError, as_float_array, positive_scalar
+from ndrigid.core.state.components import ALL_LAYERS, KIND_NAMES, STATIC
 from numpy.typing import NDArray
 
 from .loop import FixedStepper
@@ -70,7 +70,7 @@ class RigidBody:
     replace the component with a new RigidBody; the body is rebuilt at the same pose and velocity.
 
     Args:
-        shape: a shape from :mod:`ndrigid.core.shapes` in the simulation's dimension.
+        shape: a shape from :mod:`ndrigid.core.geometry.shapes` in the simulation's dimension.
         kind: "dynamic", "kinematic" or "static".
         density, mass: at most one (default density 1000 kg/m^n); ignored unless dynamic.
         friction, static_friction, restitution: material coefficients (>= 0).

@@ -4,7 +4,7 @@ Usage (the dimension is the one setting; the same game code runs in 2-D to 5-D):
 
     import esper
     from ndrigid.adapters.esper import PhysicsProcessor, RigidBody, Transform, Velocity, CONTACT_BEGIN
-    from ndrigid.core.shapes import Ball, HalfSpace
+    from ndrigid.core.geometry.shapes import Ball, HalfSpace
 
     physics = PhysicsProcessor(dim)                      # a Simulation(dim) inside
     esper.add_processor(physics)                         # priority 0: game logic above, drawing below
@@ -44,7 +44,7 @@ from typing import Any
 
 import esper
 from ndrigid.core.errors import InputError
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.world.simulation import Settings, Simulation
 
 from ._common import EntityContact, PhysicsBridge, RigidBody, Transform, Velocity
 

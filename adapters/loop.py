@@ -55,7 +55,7 @@ class FixedStepper:
     """Run a simulation in fixed steps of ``dt`` from irregular frame times.
 
     Args:
-        sim: the :class:`~ndrigid.core.simulation.Simulation` to advance.
+        sim: the :class:`~ndrigid.core.world.simulation.Simulation` to advance.
         dt: step size in seconds (default ``sim.settings.dt``).
         max_steps_per_frame: cap on the steps one :meth:`advance` takes (spiral-of-death guard).
         on_step: called with no arguments after every step (e.g. to dispatch ``sim.events``,

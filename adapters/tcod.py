@@ -33,7 +33,7 @@ from typing import Any
 import tcod.ecs
 import tcod.ecs.callbacks
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.world.simulation import Settings, Simulation
 
 from ._common import EntityContact, PhysicsBridge, RigidBody, Transform, Velocity
 

@@ -30,7 +30,7 @@ import tcod.ecs
 from ndrigid.adapters import RigidBody, Transform, Velocity
 from ndrigid.adapters.esper import PhysicsProcessor
 from ndrigid.adapters.tcod import PhysicsSystem
-from ndrigid.core.shapes import Ball, Box, HalfSpace
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
 
 DT = 1.0 / 60.0
 PHASES = ("quiet", "velocity", "churn")

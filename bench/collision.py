@@ -7,7 +7,7 @@ spinning, over a static floor half-space. Each of ``steps`` updates first advanc
 by ``v dt`` (so the boxes really move), then times ``find_pairs``; the median is reported.
 
 For comparison the same fattened boxes also go through the one-axis sweep-and-prune
-(:func:`ndrigid.core.broadphase.sweep_and_prune_pairs`) and the grid alone, so the choice recorded
+(:func:`ndrigid.core.collision.broadphase.sweep_and_prune_pairs`) and the grid alone, so the choice recorded
 in the broadphase module can be re-measured.
 
 Run ``python -m ndrigid.bench.collision``.
@@ -19,9 +19,9 @@ import time
 from typing import Any
 
 import numpy as np
-from ndrigid.core import broadphase as bp
-from ndrigid.core.shapes import Ball, Box, HalfSpace
-from ndrigid.core.simulation import Simulation
+from ndrigid.core.collision import broadphase as bp
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
+from ndrigid.core.world.simulation import Simulation
 
 __all__ = ["build_scene", "run_broadphase_bench"]
 

@@ -6,10 +6,10 @@ import time
 from typing import Any
 
 import numpy as np
-from ndrigid.core import integrate
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.components import Bodies
-from ndrigid.core.shapes import Box
+from ndrigid.core.dynamics import integrate
+from ndrigid.core.geometry.shapes import Box
+from ndrigid.core.state.components import Bodies
 
 
 def run_integrate_bench(bodies: int = 100_000, dims: tuple[int, ...] = (2, 3, 4, 5),

@@ -1,9 +1,9 @@
 """Benchmark of the hard narrowphase kernels: box/box SAT with manifolds, and polytope GJK/EPA.
 
-* :func:`run_boxbox_bench`: one call of :func:`ndrigid.core.sat.box_box` on ``pairs`` random box
+* :func:`run_boxbox_bench`: one call of :func:`ndrigid.core.collision.sat.box_box` on ``pairs`` random box
   pairs per dimension (Haar-random rotations, half-extents 0.2..1, centre offsets ~ N(0, 0.8), so
   that about two thirds of the pairs touch), manifolds included. Reported as pairs per second.
-* :func:`run_polytope_bench`: :func:`ndrigid.core.gjk.convex_pair` on overlapping and on separated
+* :func:`run_polytope_bench`: :func:`ndrigid.core.collision.gjk.convex_pair` on overlapping and on separated
   pairs of 4-D regular polytopes (24-cell, 600-cell), in milliseconds per pair.
 
 Each case is timed with ``time.perf_counter``; the best of ``repeats`` runs counts (the minimum is
@@ -20,9 +20,9 @@ from typing import Any
 
 import numpy as np
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.gjk import convex_pair
-from ndrigid.core.polytopes import cell_24, cell_600
-from ndrigid.core.sat import box_box
+from ndrigid.core.collision.gjk import convex_pair
+from ndrigid.core.collision.sat import box_box
+from ndrigid.core.geometry.polytopes import cell_24, cell_600
 from scipy.stats import special_ortho_group
 
 __all__ = ["run_boxbox_bench", "run_polytope_bench"]

@@ -16,8 +16,8 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
-from ndrigid.core.shapes import Ball, Box, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
+from ndrigid.core.world.simulation import Settings, Simulation
 
 SceneBuilder = Callable[[int, int, int], tuple[Simulation, int]]
 

@@ -16,8 +16,8 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from ndrigid.core.polytopes import cell_24, cell_120, cell_600
-from ndrigid.core.shapes import ConvexPolytope, Shape, SimplexMesh
+from ndrigid.core.geometry.polytopes import cell_24, cell_120, cell_600
+from ndrigid.core.geometry.shapes import ConvexPolytope, Shape, SimplexMesh
 
 
 def _best(fn: Callable[[], Any], repeats: int) -> float:

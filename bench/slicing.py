@@ -24,10 +24,10 @@ from typing import Any
 
 import numpy as np
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.polytopes import cell_24
-from ndrigid.core.shapes import Box
-from ndrigid.core.simulation import Simulation
-from ndrigid.core.slicing import axis_flat, face_soup, slice_world
+from ndrigid.core.geometry.polytopes import cell_24
+from ndrigid.core.geometry.shapes import Box
+from ndrigid.core.geometry.slicing import axis_flat, face_soup, slice_world
+from ndrigid.core.world.simulation import Simulation
 
 
 def _best(fn: Callable[[], Any], repeats: int) -> float:

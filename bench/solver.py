@@ -2,7 +2,7 @@
 
 Two measurements per dimension and batching (``"manifold"``, ``"point"``, ``"jacobi"``):
 
-* ``kernel``: :func:`~ndrigid.core.solver.solve_impulses` alone on a hand-built contact set of
+* ``kernel``: :func:`~ndrigid.core.dynamics.solver.solve_impulses` alone on a hand-built contact set of
   boxes resting on a static floor, in rows of stacks (each box carries one face manifold of
   2**(n-1) points on the body below). The cost per point per iteration is the slope between two
   iteration counts, so the per-call set-up (Jacobians, colouring, warm start) drops out; the
@@ -27,10 +27,10 @@ from dataclasses import replace
 from typing import Any
 
 import numpy as np
-from ndrigid.core.contacts import ContactSet, contact_keys
-from ndrigid.core.shapes import Box, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.solver import BATCHINGS, solve_impulses
+from ndrigid.core.dynamics.solver import BATCHINGS, solve_impulses
+from ndrigid.core.geometry.shapes import Box, HalfSpace
+from ndrigid.core.state.contacts import ContactSet, contact_keys
+from ndrigid.core.world.simulation import Settings, Simulation
 
 
 def _stacked_contacts(dim: int, columns: int, height: int) -> tuple[Simulation, ContactSet]:
@@ -93,7 +93,7 @@ def kernel_record(dim: int, batching: str, columns: int = 20, height: int = 5,
     t_lo = _time_solve(sim, c, replace(base, solver_passes=lo), repeats)
     t_hi = _time_solve(sim, c, replace(base, solver_passes=hi), repeats)
     per_iter = (t_hi - t_lo) / (hi - lo)
-    from ndrigid.core.solver import _batches
+    from ndrigid.core.dynamics.solver import _batches
 
     dyn = sim.bodies.kind == 0
     colours = int(_batches(batching, c.body_a, c.body_b, dyn[c.body_a], dyn[c.body_b], c.key, c.manifold,

@@ -7,11 +7,11 @@ here imports esper or pygame.
 
 from .algebra import Algebra, bivector_pairs, second_compound, skew, unskew
 from .errors import InputError, InputTypeError
-from .mass import MassProperties, inertia_from_covariance, rotate_inertia, shift_inertia
-from .noff import read_noff, write_noff
-from .polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
-from .shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
-from .simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepTimings
+from .geometry.mass import MassProperties, inertia_from_covariance, rotate_inertia, shift_inertia
+from .geometry.noff import read_noff, write_noff
+from .geometry.polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
+from .geometry.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
+from .world.simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepTimings
 
 __all__ = [
     "DYNAMIC",

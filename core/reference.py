@@ -72,8 +72,20 @@ from numpy.typing import NDArray
 from .algebra import Algebra
 
 # tuning constants are shared with the vectorised modules (comments where they are used)
-from .clip import SELECT_QUANTUM as _SELECT_QUANTUM
-from .components import (
+from .collision.clip import SELECT_QUANTUM as _SELECT_QUANTUM
+from .collision.sat import (
+    _DEGENERATE,
+    _FACE_ABS,
+    _FACE_REL,
+    _FEATURE_TOL,
+    _MIXED_ABS,
+    _MIXED_FLAG,
+    _MIXED_REL,
+)
+from .dynamics.solver import _MATCH_DISTANCE, _SLIP_SPEED, _STICK_TOL
+from .dynamics.solver import HERTZ_CAP as _HERTZ_CAP
+from .errors import InputTypeError
+from .state.components import (
     DYNAMIC,
     KINEMATIC,
     SHAPE_BALL,
@@ -85,11 +97,7 @@ from .components import (
     STATIC,
     Bodies,
 )
-from .contacts import ContactSet
-from .errors import InputTypeError
-from .sat import _DEGENERATE, _FACE_ABS, _FACE_REL, _FEATURE_TOL, _MIXED_ABS, _MIXED_FLAG, _MIXED_REL
-from .solver import _MATCH_DISTANCE, _SLIP_SPEED, _STICK_TOL
-from .solver import HERTZ_CAP as _HERTZ_CAP
+from .state.contacts import ContactSet
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
@@ -180,7 +188,7 @@ def advance_poses_reference(alg: Algebra, b: Bodies, dt: float) -> None:
 
 def _world_box(bodies: Bodies, shapes: list[Any], caches: dict[str, Any], i: int) -> tuple[Array, Array]:
     """Tight world bounding box (lo, hi), each (n,), of body i; half-spaces are unbounded."""
-    from .broadphase import shape_cloud
+    from .collision.broadphase import shape_cloud
 
     kind = int(bodies.shape_kind[i])
     p, M = bodies.position[i], bodies.rotation[i]
@@ -459,7 +467,7 @@ def _polytope_halfspace(A: _Collider, B: _Collider, margin: float, store: Any) -
 
 def _convex(alg: Algebra, A: _Collider, B: _Collider, margin: float, store: Any) -> list[_Point]:
     """Ball, box or polytope A against a box or polytope B: the per-pair GJK/EPA kernel."""
-    from .gjk import ball_convex, convex_pair
+    from .collision.gjk import ball_convex, convex_pair
 
     sb = store.get(B.key)
     if A.kind == SHAPE_BALL:
@@ -974,7 +982,7 @@ def collide_reference(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: lis
     Returns the ContactSet (rows in pair order, ``manifold`` numbering the pairs with points), the
     touching non-sensor pairs (T, 2) and the overlapping sensor pairs (S, 2).
     """
-    from .narrowphase import ShapeStore
+    from .collision.narrowphase import ShapeStore
 
     n = alg.n
     cache = caches.setdefault("narrowphase", {})
@@ -1205,7 +1213,7 @@ def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
                             "sliding": np.zeros(0, bool), "pair": z.copy(), "point": np.zeros((0, n)),
                             "by_pair": z.copy()}
         return
-    from .sleep import wake_touched
+    from .dynamics.sleep import wake_touched
 
     wake_touched(bodies, contacts, caches)  # a sleeping body hit by an awake one joins this solve
     M = contacts.count
@@ -1475,7 +1483,7 @@ def _stage_find_pairs(sim: Any, dt: float) -> None:
 
 
 def _stage_find_contacts(sim: Any, dt: float) -> None:
-    from .pipeline import _update_events
+    from .world.stages import _update_events
 
     contacts, touching, sensors = collide_reference(sim.alg, sim.bodies, sim.pairs, sim.info.shapes,
                                                     sim.settings, sim.caches, dt)

@@ -1,6 +1,6 @@
 """The pygame front end: views of a world in 2-D to 5-D, picking and dragging, overlays, headless frames.
 
-Views by dimension (slices from :mod:`ndrigid.core.slicing`):
+Views by dimension (slices from :mod:`ndrigid.core.geometry.slicing`):
 
 * 2-D: the world itself (its c = 0 "section"), drawn flat.
 * 3-D: the 2-D slice x_2 = w (keys Q/E move w) fills the window; an inset shows the whole 3-D world
@@ -55,7 +55,7 @@ class App:
 
     def __init__(self, pygame: Any, dim: int, scene: str, size: tuple[int, int], bodies: int,
                  headless: bool = False) -> None:
-        from ndrigid.core.slicing import orbit_view
+        from ndrigid.core.geometry.slicing import orbit_view
 
         from . import scenes
 
@@ -100,7 +100,7 @@ class App:
         return self.world.sim
 
     def flat(self) -> Any:
-        from ndrigid.core.slicing import axis_flat
+        from ndrigid.core.geometry.slicing import axis_flat
 
         return axis_flat(self.dim, list(self.offsets))
 
@@ -155,14 +155,14 @@ class App:
         return np.array([(px[0] - cx) / s + self.info.centre[0], -(px[1] - cy) / s + self.info.centre[1]])
 
     def camera(self) -> Any:
-        from ndrigid.core.slicing import make_camera, orbit_view
+        from ndrigid.core.geometry.slicing import make_camera, orbit_view
 
         target = np.array([self.info.centre[0], self.info.centre[1], 0.0])
         return make_camera(orbit_view(self.yaw, self.pitch), target, self.info.span * 1.6, self.perspective)
 
     def project3(self, P: np.ndarray, cam: Any) -> tuple[np.ndarray, np.ndarray]:
         """Pixels (P, 2) and depths (P,) of 3-D slice points in the main 3-D view."""
-        from ndrigid.core.slicing import project_points
+        from ndrigid.core.geometry.slicing import project_points
 
         xy, depth = project_points(P, cam)
         s = self.scale()
@@ -199,7 +199,7 @@ class App:
 
     def pick(self) -> None:
         from ndrigid.core import DYNAMIC
-        from ndrigid.core.queries import bodies_containing_point, raycast
+        from ndrigid.core.world.queries import bodies_containing_point, raycast
 
         sim, flat = self.sim, self.flat()
         handle, point, depth = None, None, 0.0
@@ -284,7 +284,7 @@ class App:
             self.draw_help(surf)
 
     def _halfspace_polygon(self, normal: np.ndarray, offset: float, lo: np.ndarray, hi: np.ndarray) -> Any:
-        from ndrigid.core.slicing import halfspace_region
+        from ndrigid.core.geometry.slicing import halfspace_region
 
         key = (tuple(np.round(normal, 6)), round(offset, 6), tuple(lo), tuple(hi))
         if key not in self._region_cache:
@@ -293,7 +293,7 @@ class App:
 
     def draw_flat(self, surf: Any) -> None:
         """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces."""
-        from ndrigid.core.slicing import slice_world
+        from ndrigid.core.geometry.slicing import slice_world
 
         from . import palette as P
 
@@ -345,7 +345,7 @@ class App:
     def _solid_faces(self, flat: Any, cam: Any, project: Any,
                      span_box: tuple[np.ndarray, np.ndarray]) -> list:
         """Draw list [(depth, kind, data)] of a 3-D slice: visible faces, balls, half-space regions."""
-        from ndrigid.core.slicing import face_soup, facing_camera, slice_world
+        from ndrigid.core.geometry.slicing import face_soup, facing_camera, slice_world
 
         from . import palette as P
 
@@ -393,7 +393,7 @@ class App:
         return items
 
     def _paint(self, surf: Any, items: list, thin: bool = False) -> None:
-        from ndrigid.core.slicing import paint_order
+        from ndrigid.core.geometry.slicing import paint_order
 
         from . import palette as P
 
@@ -428,7 +428,7 @@ class App:
 
     def draw_inset(self, surf: Any) -> None:
         """3-D worlds: the whole world projected in a corner, with the slice plane x_2 = w outlined."""
-        from ndrigid.core.slicing import axis_flat, make_camera, project_points
+        from ndrigid.core.geometry.slicing import axis_flat, make_camera, project_points
 
         from . import palette as P
 

@@ -25,7 +25,7 @@ from typing import Any
 import esper
 import numpy as np
 from ndrigid.adapters.esper import CONTACT_BEGIN, PhysicsProcessor, RigidBody, Transform, Velocity
-from ndrigid.core.shapes import Ball, Box, HalfSpace
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
 
 FRAME = 1.0 / 60.0
 

@@ -30,8 +30,8 @@ from ndrigid.adapters.esper import (
 )
 from ndrigid.core.algebra import Algebra, skew
 from ndrigid.core.errors import InputError
-from ndrigid.core.shapes import Ball, Box, HalfSpace
-from ndrigid.core.simulation import Simulation
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
+from ndrigid.core.world.simulation import Simulation
 from scipy.linalg import expm
 
 DT = 1.0 / 60.0

@@ -17,8 +17,8 @@ from conftest import dims
 from ndrigid.adapters.loop import FixedStepper, interpolate_poses
 from ndrigid.core.algebra import Algebra, skew
 from ndrigid.core.errors import InputError
-from ndrigid.core.shapes import Ball
-from ndrigid.core.simulation import Simulation
+from ndrigid.core.geometry.shapes import Ball
+from ndrigid.core.world.simulation import Simulation
 from scipy.linalg import expm, logm
 
 DT = 1.0 / 60.0

@@ -15,7 +15,7 @@ import tcod.ecs
 from conftest import dims
 from ndrigid.adapters.tcod import PhysicsSystem, RigidBody, Transform, Velocity
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.shapes import Ball
+from ndrigid.core.geometry.shapes import Ball
 from test_adapters_esper import (
     DT,
     Driver,

@@ -14,11 +14,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from conftest import dims
-from ndrigid.core import broadphase as bp
-from ndrigid.core.components import DYNAMIC, STATIC
-from ndrigid.core.polytopes import regular_simplex
-from ndrigid.core.shapes import Ball, Box, Compound, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.collision import broadphase as bp
+from ndrigid.core.geometry.polytopes import regular_simplex
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, HalfSpace
+from ndrigid.core.state.components import DYNAMIC, STATIC
+from ndrigid.core.world.simulation import Settings, Simulation
 
 DT = 1.0 / 60.0
 

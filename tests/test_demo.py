@@ -20,7 +20,7 @@ os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 pygame = pytest.importorskip("pygame")
 
 from ndrigid.core import DYNAMIC  # noqa: E402
-from ndrigid.core.slicing import slice_world  # noqa: E402
+from ndrigid.core.geometry.slicing import slice_world  # noqa: E402
 from ndrigid.demo import palette  # noqa: E402
 from ndrigid.demo.app import run_headless  # noqa: E402
 from ndrigid.demo.scenes import scene_names  # noqa: E402

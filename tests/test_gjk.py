@@ -15,9 +15,9 @@ import pytest
 import scipy.sparse as sp
 from conftest import dims
 from ndrigid.core.algebra import Algebra
+from ndrigid.core.collision.gjk import ball_convex, convex_pair, gjk_distance
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.gjk import ball_convex, convex_pair, gjk_distance
-from ndrigid.core.shapes import Ball, Box, ConvexPolytope
+from ndrigid.core.geometry.shapes import Ball, Box, ConvexPolytope
 from scipy.optimize import linprog, minimize
 from scipy.stats import special_ortho_group
 

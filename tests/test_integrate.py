@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.algebra import Algebra, second_compound, skew, unskew
-from ndrigid.core.shapes import Ball, Box
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.geometry.shapes import Ball, Box
+from ndrigid.core.world.simulation import Settings, Simulation
 from scipy.integrate import solve_ivp
 
 

@@ -18,10 +18,10 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.contacts import ManifoldPoints
-from ndrigid.core.gjk import convex_pair
-from ndrigid.core.sat import box_box
-from ndrigid.core.shapes import Box
+from ndrigid.core.collision.gjk import convex_pair
+from ndrigid.core.collision.sat import box_box
+from ndrigid.core.geometry.shapes import Box
+from ndrigid.core.state.contacts import ManifoldPoints
 
 Kernel = Callable[[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, float],
                   ManifoldPoints]
@@ -163,7 +163,7 @@ def test_feature_ids_are_stable_under_small_motion(dim: int, kernel: Kernel,
 def test_tangent_basis_of_axis_normals_regression(dim: int, rng: np.random.Generator) -> None:
     """Regression (axis-aligned normals divided by zero): the basis is orthonormal and orthogonal to
     the normal for +-e_i and for random unit normals (checked against the identity Q Q^T = I - u u^T)."""
-    from ndrigid.core.clip import tangent_basis
+    from ndrigid.core.collision.clip import tangent_basis
 
     n = dim
     U = np.vstack([np.eye(n), -np.eye(n), rng.normal(size=(5, n))])

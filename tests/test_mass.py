@@ -25,7 +25,7 @@ from conftest import dims
 from kingdon import Algebra as KAlgebra
 from ndrigid.core.algebra import Algebra, bivector_pairs
 from ndrigid.core.errors import InputError
-from ndrigid.core.mass import (
+from ndrigid.core.geometry.mass import (
     MassProperties,
     boundary_moments,
     combine_mass_properties,
@@ -35,7 +35,7 @@ from ndrigid.core.mass import (
     shift_inertia,
     simplex_moments,
 )
-from ndrigid.core.shapes import Box, ConvexPolytope
+from ndrigid.core.geometry.shapes import Box, ConvexPolytope
 from scipy.linalg import expm
 
 P3 = np.array([[0, 0, 1], [0, -1, 0], [1, 0, 0]], dtype=float)

@@ -20,12 +20,12 @@ import itertools
 import numpy as np
 import pytest
 from conftest import dims
-from ndrigid.core import broadphase as bp
-from ndrigid.core import narrowphase as nph
-from ndrigid.core.contacts import ContactSet
-from ndrigid.core.polytopes import orthoplex
-from ndrigid.core.shapes import Ball, Box, Compound, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.collision import broadphase as bp
+from ndrigid.core.collision import narrowphase as nph
+from ndrigid.core.geometry.polytopes import orthoplex
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, HalfSpace
+from ndrigid.core.state.contacts import ContactSet
+from ndrigid.core.world.simulation import Settings, Simulation
 from scipy.optimize import minimize
 
 DT = 1.0 / 60.0

@@ -18,9 +18,9 @@ import pytest
 import trimesh
 from conftest import dims
 from ndrigid.core.errors import InputError
-from ndrigid.core.noff import format_noff, parse_noff, read_noff, write_noff
-from ndrigid.core.polytopes import cell_24, cell_120
-from ndrigid.core.shapes import Box, ConvexPolytope, SimplexMesh
+from ndrigid.core.geometry.noff import format_noff, parse_noff, read_noff, write_noff
+from ndrigid.core.geometry.polytopes import cell_24, cell_120
+from ndrigid.core.geometry.shapes import Box, ConvexPolytope, SimplexMesh
 
 
 @dims(2, 3, 4, 5)

@@ -21,8 +21,8 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.errors import InputError
-from ndrigid.core.polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
-from ndrigid.core.shapes import Box, ConvexPolytope
+from ndrigid.core.geometry.polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
+from ndrigid.core.geometry.shapes import Box, ConvexPolytope
 from scipy.spatial import ConvexHull
 
 S5 = math.sqrt(5.0)

@@ -19,9 +19,9 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.polytopes import orthoplex, regular_simplex
-from ndrigid.core.shapes import Ball, Box, Compound, HalfSpace
-from ndrigid.core.simulation import Simulation
+from ndrigid.core.geometry.polytopes import orthoplex, regular_simplex
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, HalfSpace
+from ndrigid.core.world.simulation import Simulation
 from scipy.optimize import minimize
 from scipy.spatial import ConvexHull
 

@@ -29,17 +29,17 @@ import copy
 import numpy as np
 import pytest
 from conftest import dims
-from ndrigid.core import broadphase, narrowphase
-from ndrigid.core.contacts import ContactSet
+from ndrigid.core.collision import broadphase, narrowphase
 from ndrigid.core.errors import InputTypeError
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, HalfSpace
 from ndrigid.core.reference import (
     collide_reference,
     find_pairs_reference,
     solve_impulses_reference,
     use_reference_stages,
 )
-from ndrigid.core.shapes import Ball, Box, Compound, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.state.contacts import ContactSet
+from ndrigid.core.world.simulation import Settings, Simulation
 
 DT = 1.0 / 60.0
 TOL = 1e-9

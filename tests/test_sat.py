@@ -21,8 +21,8 @@ import pytest
 import scipy.sparse as sp
 from conftest import dims
 from ndrigid.core.algebra import Algebra
+from ndrigid.core.collision.sat import _MIXED_FLAG, box_axes, box_axis_count, box_box, box_sat
 from ndrigid.core.errors import InputError
-from ndrigid.core.sat import _MIXED_FLAG, box_axes, box_axis_count, box_box, box_sat
 from scipy.linalg import null_space
 from scipy.optimize import linprog
 from scipy.stats import special_ortho_group

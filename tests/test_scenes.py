@@ -24,8 +24,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 from conftest import ALL_DIMS, dim_id, dims
-from ndrigid.core.shapes import Ball, Box, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
+from ndrigid.core.world.simulation import Settings, Simulation
 
 G = 9.81
 

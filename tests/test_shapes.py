@@ -25,8 +25,8 @@ import trimesh
 from conftest import dims
 from ndrigid.core.algebra import Algebra, bivector_pairs
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.mass import rotate_inertia, shift_inertia
-from ndrigid.core.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
+from ndrigid.core.geometry.mass import rotate_inertia, shift_inertia
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
 from scipy.linalg import expm
 from scipy.spatial import ConvexHull
 from scipy.stats import qmc

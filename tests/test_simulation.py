@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.shapes import Ball, Box, HalfSpace
-from ndrigid.core.simulation import Settings, Simulation
+from ndrigid.core.geometry.shapes import Ball, Box, HalfSpace
+from ndrigid.core.world.simulation import Settings, Simulation
 
 
 def _snapshot(sim: Simulation) -> dict[str, np.ndarray]:

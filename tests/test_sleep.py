@@ -14,10 +14,10 @@ from dataclasses import replace
 import numpy as np
 import pytest
 from conftest import dims
-from ndrigid.core.contacts import ContactSet, contact_keys
-from ndrigid.core.shapes import Ball, Box
-from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.sleep import body_speeds, island_labels, settle_islands, wake_touched
+from ndrigid.core.dynamics.sleep import body_speeds, island_labels, settle_islands, wake_touched
+from ndrigid.core.geometry.shapes import Ball, Box
+from ndrigid.core.state.contacts import ContactSet, contact_keys
+from ndrigid.core.world.simulation import Settings, Simulation
 
 DT = 1.0 / 60.0
 

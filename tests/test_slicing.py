@@ -14,10 +14,9 @@ import pytest
 from conftest import dims
 from ndrigid.core.algebra import Algebra
 from ndrigid.core.errors import InputError, InputTypeError
-from ndrigid.core.polytopes import cell_24, hypercube, orthoplex, regular_simplex
-from ndrigid.core.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace
-from ndrigid.core.simulation import Simulation
-from ndrigid.core.slicing import (
+from ndrigid.core.geometry.polytopes import cell_24, hypercube, orthoplex, regular_simplex
+from ndrigid.core.geometry.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace
+from ndrigid.core.geometry.slicing import (
     axis_flat,
     default_frame,
     face_soup,
@@ -33,6 +32,7 @@ from ndrigid.core.slicing import (
     slice_shape,
     slice_world,
 )
+from ndrigid.core.world.simulation import Simulation
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull, HalfspaceIntersection
 
@@ -225,7 +225,7 @@ def test_cavalieri_recovers_polytope_volume(dim: int, name: str, rng: np.random.
     flat = hyperplane(np.zeros(dim), u)
     # one batch: the body translated by -s u is cut by the fixed hyperplane at height s
     batch = slice_bodies(shape, -s[:, None] * u, np.tile(M, (len(s), 1, 1)), flat)
-    from ndrigid.core.slicing import records
+    from ndrigid.core.geometry.slicing import records
 
     recs = records(batch)
     assert len(recs) == len(s)
@@ -243,7 +243,7 @@ def test_cavalieri_recovers_ball_volume(dim: int) -> None:
     flat = axis_flat(dim, [0.0])
     poses = np.outer(-s, np.eye(dim)[-1]), np.tile(np.eye(dim), (len(s), 1, 1))
     out = slice_bodies(Ball(dim, r), *poses, flat)
-    from ndrigid.core.slicing import records
+    from ndrigid.core.geometry.slicing import records
 
     total = sum(wi * rec.measure() for wi, rec in zip(w, records(out), strict=True))
     exact = math.pi ** (dim / 2) * r**dim / math.gamma(dim / 2 + 1)

@@ -31,10 +31,10 @@ import numpy as np
 import pytest
 from conftest import dims
 from ndrigid.core.algebra import skew, unskew
-from ndrigid.core.contacts import ContactSet, combine_friction, combine_restitution, contact_keys
-from ndrigid.core.shapes import Ball, Box
-from ndrigid.core.simulation import Settings, Simulation
-from ndrigid.core.solver import colour_items, solve_impulses, tangent_basis
+from ndrigid.core.dynamics.solver import colour_items, solve_impulses, tangent_basis
+from ndrigid.core.geometry.shapes import Ball, Box
+from ndrigid.core.state.contacts import ContactSet, combine_friction, combine_restitution, contact_keys
+from ndrigid.core.world.simulation import Settings, Simulation
 
 DT = 1.0 / 60.0
 
@@ -363,7 +363,7 @@ def test_warm_start_matches_keys_and_reprojects_tangent_impulse(dim, rng):
     within the match distance), unknown rows start at zero, and the old tangent
     impulse (a world vector) is projected onto the new tangent plane, t - (t . d) d (common
     practice: orthogonal projection)."""
-    from ndrigid.core.solver import _warm_values
+    from ndrigid.core.dynamics.solver import _warm_values
 
     sim = ball_on_floor(dim, friction=1.0)
     bd = sim.bodies
@@ -386,7 +386,7 @@ def test_warm_start_matches_keys_and_reprojects_tangent_impulse(dim, rng):
     near[0] = 0.01
     c = contacts_for(sim, [0, 0, 0], [1, 1, 1], [tilted, up, up], np.stack([np.zeros(dim), far, near]),
                      [0.0, 0.0, 0.0], feature=[0, 7, 8])
-    from ndrigid.core.solver import _pair_keys
+    from ndrigid.core.dynamics.solver import _pair_keys
 
     pair = _pair_keys(sim.bodies, c)
     lam_n, lam_t, _ = _warm_values(c, pair, old, True, 0.02)

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import InputError, dimension, positive_scalar
+from ..errors import InputError, dimension, positive_scalar
 from .shapes import Box, ConvexPolytope
 
 Array = NDArray[np.float64]

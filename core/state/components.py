@@ -33,7 +33,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
+from ..algebra import Algebra
+from ..errors import InputTypeError
+from ..geometry import shapes as S
 
 DYNAMIC, KINEMATIC, STATIC = 0, 1, 2
 KIND_NAMES = {"dynamic": DYNAMIC, "kinematic": KINEMATIC, "static": STATIC}
@@ -176,8 +178,6 @@ class Bodies(Table):
 
     def world_inv_inertia(self) -> NDArray[np.float64]:
         """World-frame inverse inertia maps (N, k, k): C2(P) diag(inv_inertia) C2(P)^T."""
-        from .integrate import body_frames
-
         C = body_frames(self.alg, self.rotor, self.principal_rotor)
         return np.matmul(C * self.inv_inertia[:, None, :], np.swapaxes(C, -1, -2))
 
@@ -212,3 +212,26 @@ class BodyInfo:
             self.shapes.append(shape)
             self.shape_ids[key] = sid
         return sid
+
+
+def body_frames(alg: Algebra, rotor: NDArray[np.float64],
+                principal_rotor: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Second compound matrices (N, k, k) of the world-from-principal rotations ``R Q``.
+
+    Shapes whose principal axes are their own axes (balls, boxes, most polytopes) carry the exact
+    identity rotor Q (scalar part exactly 1); when every row does, ``R Q = R`` is used directly.
+    """
+    if principal_rotor.shape[0] and np.all(principal_rotor[:, 0] == 1.0):
+        return alg.rotor_to_compound(rotor)
+    return alg.rotor_to_compound(alg.rotor_mul(rotor, principal_rotor))
+
+
+def shape_kind(shape: Any) -> int:
+    """Collider kind code of a shape object (SHAPE_BALL, SHAPE_BOX, ...)."""
+    for cls, code in ((S.Ball, SHAPE_BALL), (S.Box, SHAPE_BOX), (S.HalfSpace, SHAPE_HALFSPACE),
+                      (S.Compound, SHAPE_COMPOUND), (S.SimplexMesh, SHAPE_MESH),
+                      (S.ConvexPolytope, SHAPE_POLYTOPE)):
+        if isinstance(shape, cls):
+            return code
+    raise InputTypeError("shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, SimplexMesh, "
+                         f"Compound, HalfSpace), got {type(shape).__name__}")

@@ -31,9 +31,9 @@ from numpy.typing import NDArray
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from .algebra import Algebra
-from .components import DYNAMIC, KINEMATIC, Bodies
-from .contacts import ContactSet
+from ..algebra import Algebra
+from ..state.components import DYNAMIC, KINEMATIC, Bodies
+from ..state.contacts import ContactSet
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]

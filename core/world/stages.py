@@ -17,7 +17,9 @@ from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
-from . import broadphase, narrowphase, sleep, solver
+from ..collision import broadphase, narrowphase
+from ..dynamics import integrate as _integrate
+from ..dynamics import sleep, solver
 
 if TYPE_CHECKING:
     from .simulation import Simulation, Stage
@@ -84,3 +86,23 @@ def collision_stages() -> list[tuple[str, Stage]]:
 
 def sleep_stages() -> list[tuple[str, Stage]]:
     return [("settle_islands", _stage_sleep)]
+
+
+# -- the default stages ---------------------------------------------------------------------------
+
+
+def _stage_accelerate(sim: Simulation, dt: float) -> None:
+    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+
+
+def _stage_advance_poses(sim: Simulation, dt: float) -> None:
+    _integrate.advance_poses(sim.alg, sim.bodies, dt)
+
+
+def default_stages() -> list[tuple[str, Stage]]:
+    """The ordered stages of a step (see the module docstring)."""
+    stages: list[tuple[str, Stage]] = [("accelerate", _stage_accelerate)]
+    stages += collision_stages()
+    stages.append(("advance_poses", _stage_advance_poses))
+    stages += sleep_stages()
+    return stages

@@ -62,10 +62,10 @@ from typing import Any, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
+from ..algebra import Algebra
+from ..errors import InputError
+from ..state.contacts import ManifoldPoints
 from .clip import clip_segments, diagonal_directions, manifold_cap, select_points
-from .contacts import ManifoldPoints
-from .errors import InputError
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]

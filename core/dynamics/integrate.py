@@ -31,25 +31,14 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
-from .components import DYNAMIC, KINEMATIC, Bodies
+from ..algebra import Algebra
+from ..state.components import DYNAMIC, KINEMATIC, Bodies, body_frames
 
 Array = NDArray[np.float64]
 
 GYRO_IMPLICIT = "implicit"
 GYRO_EXPLICIT = "explicit"
 GYRO_NONE = "none"
-
-
-def body_frames(alg: Algebra, rotor: Array, principal_rotor: Array) -> Array:
-    """Second compound matrices (N, k, k) of the world-from-principal rotations ``R Q``.
-
-    Shapes whose principal axes are their own axes (balls, boxes, most polytopes) carry the exact
-    identity rotor Q (scalar part exactly 1); when every row does, ``R Q = R`` is used directly.
-    """
-    if principal_rotor.shape[0] and np.all(principal_rotor[:, 0] == 1.0):
-        return alg.rotor_to_compound(rotor)
-    return alg.rotor_to_compound(alg.rotor_mul(rotor, principal_rotor))
 
 
 def _matvec(C: Array, x: Array) -> Array:

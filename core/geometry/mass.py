@@ -47,8 +47,8 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy.optimize import linear_sum_assignment
 
-from .algebra import Algebra, bivector_pairs, second_compound
-from .errors import InputError, as_float_array, positive_scalar
+from ..algebra import Algebra, bivector_pairs, second_compound
+from ..errors import InputError, as_float_array, positive_scalar
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.intp]

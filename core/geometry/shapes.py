@@ -50,8 +50,8 @@ from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from .algebra import Algebra
-from .errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..algebra import Algebra
+from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
 from .mass import MassProperties, boundary_moments, combine_mass_properties, resolve_density
 
 Array = NDArray[np.float64]

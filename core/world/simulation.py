@@ -24,9 +24,10 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from . import integrate as _integrate
-from .algebra import Algebra
-from .components import (
+from ..algebra import Algebra
+from ..dynamics import integrate as _integrate
+from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..state.components import (
     ALL_LAYERS,
     DYNAMIC,
     KIND_NAMES,
@@ -40,8 +41,10 @@ from .components import (
     STATIC,
     Bodies,
     BodyInfo,
+    shape_kind,
 )
-from .errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from . import queries
+from .stages import default_stages, removal_events
 
 Array = NDArray[np.float64]
 
@@ -55,6 +58,8 @@ class Settings:
         substeps: sub-steps per step (each runs every stage with dt / substeps).
         gyroscopic: free-spin term of Euler's equations: "implicit" (one Newton step, default),
             "explicit" or "none".
+        compiled: run the compiled kernels (numba) where they exist; False runs the vectorised
+            numpy path (so does the environment variable ``NDRIGID_KERNELS=numpy``).
 
     Solver passes
         solver_passes: sequential-impulse passes with the soft overlap bias.
@@ -92,6 +97,7 @@ class Settings:
     dt: float = 1.0 / 60.0
     substeps: int = 1
     gyroscopic: str = "implicit"
+    compiled: bool = True
     solver_passes: int = 8
     bias_free_passes: int = 3
     warm_start: bool = True
@@ -120,6 +126,9 @@ class Settings:
         if not isinstance(self.bias_free_passes, (int, np.integer)) or self.bias_free_passes < 0:
             raise InputError("settings.bias_free_passes: expected an integer >= 0, got "
                              f"{self.bias_free_passes!r}")
+        for name in ("compiled", "warm_start", "sleep_enabled"):
+            if not isinstance(getattr(self, name), (bool, np.bool_)):
+                raise InputTypeError(f"settings.{name}: expected True or False, got {getattr(self, name)!r}")
         if self.solver_batching not in ("manifold", "point", "jacobi"):
             raise InputError(f"settings.solver_batching: expected 'manifold', 'point' or 'jacobi', got "
                              f"{self.solver_batching!r}")
@@ -333,8 +342,6 @@ class Simulation:
     def _removal_events(self, handle: int) -> None:
         """Queue end events for the touching pairs of a body being removed (reported by the next
         step, before that step's own events)."""
-        from .pipeline import removal_events
-
         events, self.events = self.events, self._pending_events
         removal_events(self, handle)
         self._pending_events, self.events = self.events, events
@@ -345,7 +352,7 @@ class Simulation:
         b.awake[row] = True
         b.rest_time[row] = 0.0
         if "sleep" in self.caches:  # islands asleep on this body: the collision stages skip them
-            from .sleep import wake_resting_on
+            from ..dynamics.sleep import wake_resting_on
 
             wake_resting_on(b, self.caches, row)
         c = self.contacts
@@ -628,76 +635,31 @@ class Simulation:
     def raycast(self, origin: Any, direction: Any, max_distance: Any = np.inf,
                 layer_mask: Any = ALL_LAYERS) -> Any:
         """First body hit by a ray, as a ``queries.RayHit`` (handle, point, normal, distance), or None."""
-        from . import queries
-
         return queries.raycast(self, origin, direction, max_distance, layer_mask)
 
     def raycast_all(self, origin: Any, direction: Any, max_distance: Any = np.inf,
                     layer_mask: Any = ALL_LAYERS) -> list[Any]:
         """Every body a ray enters, as ``queries.RayHit`` records sorted by distance."""
-        from . import queries
-
         return queries.raycast_all(self, origin, direction, max_distance, layer_mask)
 
     def bodies_containing_point(self, point: Any, layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
         """Handles of the bodies whose solid contains a world point."""
-        from . import queries
-
         return queries.bodies_containing_point(self, point, layer_mask)
 
     def bodies_overlapping_box(self, lo: Any, hi: Any, layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
         """Handles of the bodies whose bounding box overlaps the world box [lo, hi]."""
-        from . import queries
-
         return queries.bodies_overlapping_box(self, lo, hi, layer_mask)
 
     def bodies_overlapping_shape(self, shape: Any, position: Any, rotor: Any = None,
                                  layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
         """Handles of the bodies whose solid overlaps ``shape`` placed at (position, rotor)."""
-        from . import queries
-
         return queries.bodies_overlapping_shape(self, shape, position, rotor, layer_mask)
-
-
-def shape_kind(shape: Any) -> int:
-    """Collider kind code of a shape object (SHAPE_BALL, SHAPE_BOX, ...)."""
-    from . import shapes as S
-
-    for cls, code in ((S.Ball, SHAPE_BALL), (S.Box, SHAPE_BOX), (S.HalfSpace, SHAPE_HALFSPACE),
-                      (S.Compound, SHAPE_COMPOUND), (S.SimplexMesh, SHAPE_MESH),
-                      (S.ConvexPolytope, SHAPE_POLYTOPE)):
-        if isinstance(shape, cls):
-            return code
-    raise InputTypeError("shape: expected an ndrigid shape (Ball, Box, ConvexPolytope, SimplexMesh, "
-                         f"Compound, HalfSpace), got {type(shape).__name__}")
 
 
 def _wedge(alg: Algebra, a: Array, b: Array) -> Array:
     """Bivector components (..., k) of a ^ b for vectors a, b (..., n)."""
     p = alg.pairs
     return a[..., p[:, 0]] * b[..., p[:, 1]] - a[..., p[:, 1]] * b[..., p[:, 0]]
-
-
-# -- the default stages ---------------------------------------------------------------------------
-
-
-def _stage_accelerate(sim: Simulation, dt: float) -> None:
-    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
-
-
-def _stage_advance_poses(sim: Simulation, dt: float) -> None:
-    _integrate.advance_poses(sim.alg, sim.bodies, dt)
-
-
-def default_stages() -> list[tuple[str, Stage]]:
-    """The ordered stages of a step (see the module docstring)."""
-    from .pipeline import collision_stages, sleep_stages
-
-    stages: list[tuple[str, Stage]] = [("accelerate", _stage_accelerate)]
-    stages += collision_stages()
-    stages.append(("advance_poses", _stage_advance_poses))
-    stages += sleep_stages()
-    return stages
 
 
 __all__ = [

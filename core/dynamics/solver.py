@@ -131,9 +131,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
-from .components import DYNAMIC, Bodies
-from .contacts import ContactSet, combine_friction
+from ..algebra import Algebra
+from ..state.components import DYNAMIC, Bodies
+from ..state.contacts import ContactSet, combine_friction
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]

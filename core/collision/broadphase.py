@@ -68,8 +68,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
-from .components import (
+from ..algebra import Algebra
+from ..state.components import (
     DYNAMIC,
     SHAPE_BALL,
     SHAPE_BOX,
@@ -117,7 +117,7 @@ def shape_cloud(shape: Any, caches: dict[str, Any] | None = None,
         hit = store.get(sid)
         if hit is not None:
             return hit
-    from . import shapes as S
+    from ..geometry import shapes as S
 
     if isinstance(shape, S.Compound):
         pts, rad = [], []

@@ -27,10 +27,10 @@ from typing import TYPE_CHECKING, Any, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
-from . import broadphase as bp
-from . import narrowphase as nph
-from .components import ALL_LAYERS, SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE, SHAPE_POLYTOPE
-from .errors import InputError, InputTypeError, as_float_array
+from ..collision import broadphase as bp
+from ..collision import narrowphase as nph
+from ..errors import InputError, InputTypeError, as_float_array
+from ..state.components import ALL_LAYERS, SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE, SHAPE_POLYTOPE
 
 if TYPE_CHECKING:
     from .simulation import Simulation
@@ -336,7 +336,7 @@ def bodies_overlapping_shape(sim: Simulation, shape: Any, position: Any, rotor: 
 
     Exact: the narrowphase kernels with a zero margin (touching counts as overlapping).
     """
-    from .simulation import shape_kind
+    from ..state.components import shape_kind
 
     mask = _layer_mask(layer_mask)
     alg, n = sim.alg, sim.dim

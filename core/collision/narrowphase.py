@@ -44,8 +44,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
-from .components import (
+from ..algebra import Algebra
+from ..state.components import (
     SHAPE_BALL,
     SHAPE_BOX,
     SHAPE_COMPOUND,
@@ -55,7 +55,7 @@ from .components import (
     STATIC,
     Bodies,
 )
-from .contacts import ContactSet, ManifoldPoints, combine_friction, combine_restitution, contact_keys
+from ..state.contacts import ContactSet, ManifoldPoints, combine_friction, combine_restitution, contact_keys
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
@@ -147,7 +147,7 @@ class ShapeStore:
         hit = self.compound.get(key)
         if hit is not None:
             return hit
-        from .simulation import shape_kind
+        from ..state.components import shape_kind
 
         comp = self.get(key)
         n = comp.dim
@@ -258,7 +258,7 @@ def colliders_of_rows(bodies: Bodies, store: ShapeStore,
 def colliders_of_shape(alg: Algebra, store: ShapeStore, shape: Any, position: Array, rotation: Array,
                        owner: int = -1) -> Colliders:
     """Colliders of one free-standing shape at a pose (queries): compound pieces expanded."""
-    from .simulation import shape_kind
+    from ..state.components import shape_kind
 
     n = alg.n
     kind = shape_kind(shape)

@@ -53,11 +53,11 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .algebra import Algebra
+from ..algebra import Algebra
+from ..errors import InputError, InputTypeError, as_float_array
+from ..geometry.shapes import ConvexPolytope
+from ..state.contacts import ManifoldPoints
 from .clip import clip_segments, manifold_cap, reduce_points, tangent_basis
-from .contacts import ManifoldPoints
-from .errors import InputError, InputTypeError, as_float_array
-from .shapes import ConvexPolytope
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]

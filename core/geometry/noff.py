@@ -30,7 +30,7 @@ from typing import IO, Any, Literal
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import InputError, InputTypeError
+from ..errors import InputError, InputTypeError
 from .shapes import ConvexPolytope, SimplexMesh
 
 __all__ = ["NoffData", "format_noff", "parse_noff", "read_noff", "write_noff"]

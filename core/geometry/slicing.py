@@ -70,11 +70,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
 from .shapes import Ball, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
 
 if TYPE_CHECKING:
-    from .simulation import Simulation
+    from ..world.simulation import Simulation
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.intp]

@@ -1,0 +1,1 @@
+"""``python -m ndrigid.compile``: compile and cache the kernels ahead of time."""
