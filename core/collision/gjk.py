@@ -359,8 +359,15 @@ def _face_manifold(ref: ConvexPolytope, Rr: Array, pr: Array, fr: int, inc: Conv
     D = np.concatenate(deps)
     Cd = np.concatenate(codes).astype(np.int64)
     valid = D > -margin
-    T = (P - pr) @ tangent_basis(nr[None])[0].T
     size = float(np.max(np.abs(Vr - pr))) + 1e-300
+    # The same point can arrive twice: in 2-D a reference edge clipped by an incident side plane
+    # ends exactly on an incident vertex. Keep the copy with the lower code (the incident vertex),
+    # so the kept set, and with it the warm-start keys, does not hang on a rounding-level tie.
+    if len(P) > 1:
+        close = np.sum((P[:, None, :] - P[None, :, :]) ** 2, axis=-1) <= (1e-9 * size) ** 2
+        lower = (Cd[None, :] < Cd[:, None]) & valid[None, :]
+        valid &= ~np.any(close & lower, axis=1)
+    T = (P - pr) @ tangent_basis(nr[None])[0].T
     keep = reduce_points(T[None], D[None], valid[None], manifold_cap(n), 1e-6 * size, Cd[None])[0]
     return P[keep], D[keep], Cd[keep]
 
