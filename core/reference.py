@@ -11,19 +11,19 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
 :func:`use_reference_stages` swaps these in for a Simulation's stages:
 
 * ``accelerate`` / ``advance_poses``: body by body, the same semi-implicit Euler
-  step and the same one-Newton-step implicit gyroscopic update (core/integrate.py);
+  step and the same one-Newton-step implicit gyroscopic update (core/dynamics/integrate.py);
 * ``find_pairs``: every pair of bounded bodies by their fattened bounding boxes (all pairs, no
   grid), every half-space against every bounded body, the same fattening and filter rules
-  (core/broadphase.py);
+  (core/collision/broadphase.py);
 * ``find_contacts``: pair by pair, the kernel of the pair's kind written for one pair: ball/ball,
   ball/half-space, ball/box, box/half-space, polytope/half-space, and box/box by the separating-axis
   test over all C(2n, n-1) candidate axes (the mixed axes as generalised cross products, i.e.
   determinants, rather than the vectorised path's minor tables), with the same coherence
   preference, the same clipping of the incident and reference face edges, the same 2-face
   crossings in 5-D, the same plane-set feature ids and the same stable selection of the kept
-  points (core/narrowphase.py, core/sat.py, core/clip.py). Pairs involving a general convex
+  points (core/collision/narrowphase.py, core/collision/sat.py, core/collision/clip.py). Pairs involving a general convex
   polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`, which are per pair already;
-* ``solve_impulses``: contact by contact, the same sequence (core/solver.py): prepare each row
+* ``solve_impulses``: contact by contact, the same sequence (core/dynamics/solver.py): prepare each row
   (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias),
   warm start by key (else by the nearest last-step point of the same pair), biased iterations and
   bias-free passes per batch in colour order (per row: the normal impulse, then the friction
@@ -119,7 +119,7 @@ def _empty_pairs() -> IntArray:
 
 
 # =============================================================================================
-# integration (core/integrate.py), body by body
+# integration (core/dynamics/integrate.py), body by body
 # =============================================================================================
 
 
@@ -182,7 +182,7 @@ def advance_poses_reference(alg: Algebra, b: Bodies, dt: float) -> None:
 
 
 # =============================================================================================
-# broadphase (core/broadphase.py): all pairs by fattened boxes
+# broadphase (core/collision/broadphase.py): all pairs by fattened boxes
 # =============================================================================================
 
 
@@ -290,7 +290,7 @@ def find_pairs_reference(alg: Algebra, bodies: Bodies, shapes: list[Any], settin
 
 
 # =============================================================================================
-# narrowphase (core/narrowphase.py, core/sat.py, core/clip.py): pair by pair
+# narrowphase (core/collision/narrowphase.py, core/collision/sat.py, core/collision/clip.py): pair by pair
 # =============================================================================================
 
 
@@ -480,7 +480,7 @@ def _convex(alg: Algebra, A: _Collider, B: _Collider, margin: float, store: Any)
 
 # -- box/box: separating axes, clipped face manifolds --------------------------------------------
 
-# the box/box constants come from core/sat.py (imported above): coherence tolerances of the axis
+# the box/box constants come from core/collision/sat.py (imported above): coherence tolerances of the axis
 # choice (A's faces over B's by 2 % + 1e-5, faces over mixed axes by 5 % + 1e-4), the length below
 # which a mixed axis's raw cross product counts as degenerate, and the flag bit of mixed features
 
@@ -595,7 +595,7 @@ def _diagonals(d: int, cap: int) -> list[Array]:
 
 def _select_points(tang: list[Array], valid: list[bool], codes: list[int], cap: int, directions: list[Array],
                    tol: float, depth: list[float] | None = None) -> list[bool]:
-    """At most ``cap`` candidates (core/clip.py ``select_points`` stated one pair at a time).
+    """At most ``cap`` candidates (core/collision/clip.py ``select_points`` stated one pair at a time).
 
     The first slot of each feature code; then, with depths, the deepest (depths rounded to the
     selection quantum times the patch diagonal, ties to the lowest code); then for each direction
@@ -725,7 +725,7 @@ def _box_box_mixed(A: _Collider, B: _Collider, C: Array, d: Array, ax: int, u: A
 
 def _box_box_face(A: _Collider, B: _Collider, C: Array, d: Array, flip: bool, ia: int, ib: int,
                   margin: float) -> list[_Point]:
-    """Clipped face manifold of one box pair, in the reference box's frame (see core/sat.py).
+    """Clipped face manifold of one box pair, in the reference box's frame (see core/collision/sat.py).
 
     Candidates: the incident face's edges clipped against the reference face's side slab, the
     reference face's edges slid onto the incident face's hyperplane and clipped against its slab,
@@ -1030,10 +1030,10 @@ def collide_reference(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: lis
 
 
 # =============================================================================================
-# solver (core/solver.py): contact by contact
+# solver (core/dynamics/solver.py): contact by contact
 # =============================================================================================
 
-# the solver's tuning constants come from core/solver.py (imported above, so that a retune there
+# the solver's tuning constants come from core/dynamics/solver.py (imported above, so that a retune there
 # keeps the two paths comparable): a tangent impulse beyond the ball by less than _STICK_TOL (relative) is on
 # it; a manifold slipping slower than _SLIP_SPEED (m/s) after the solve sticks; the stiffness is
 # capped at _HERTZ_CAP times the step rate; _MATCH_DISTANCE (m) is the warm-start match radius

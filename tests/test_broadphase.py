@@ -6,7 +6,7 @@ References:
   each shape's own ``support``, independently of the broadphase's per-kind formulas;
 * a box reaches a half-space u . x <= d iff its lowest corner does (brute force over the 2^n corners);
 * the pair set is compared with the O(N^2) test of every pair (brute force);
-* filter rules as documented in core/broadphase.py (layer/mask bits as in the Simulation docstring).
+* filter rules as documented in core/collision/broadphase.py (layer/mask bits as in the Simulation docstring).
 """
 
 from __future__ import annotations
@@ -202,7 +202,7 @@ def test_fast_body_is_paired_through_its_swept_box(dim: int) -> None:
 )
 def test_activity_filter(kind_a: str, kind_b: str, asleep_a: bool, asleep_b: bool, sensor_b: bool,
                          expected: bool) -> None:
-    """Pairs in which neither body can respond are skipped (rules of core/broadphase.py)."""
+    """Pairs in which neither body can respond are skipped (rules of core/collision/broadphase.py)."""
     sim = Simulation(3)
     sim.add_body(Ball(3, 0.5), kind=kind_a)
     sim.add_body(Ball(3, 0.5), kind=kind_b, position=[0.8, 0, 0], sensor=sensor_b)

@@ -1,5 +1,5 @@
 """Hand-checked contact manifolds (common practice), through both kernels: the box/box SAT
-(core/sat.py) and the polytope path (core/gjk.py, with Box shapes).
+(core/collision/sat.py) and the polytope path (core/collision/gjk.py, with Box shapes).
 
 * A box resting face-down on a larger box touches at the corners of its bottom face: 2, 4, 8 points
   in 2-D, 3-D, 4-D (in 5-D the manifold is capped at 8 of the 16 corners).

@@ -1,4 +1,4 @@
-"""Tests of ``core/mass.py``: the bivector inertia map, its transform rules, simplex integration and
+"""Tests of ``core/geometry/mass.py``: the bivector inertia map, its transform rules, simplex integration and
 the mass-property record.
 
 References (named again beside each check):

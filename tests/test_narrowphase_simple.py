@@ -350,7 +350,7 @@ def test_contact_rows_sorted_by_manifold_with_materials() -> None:
 @dims(2, 3, 4)
 def test_contact_events_through_the_simulation(dim: int) -> None:
     """A ball dropped on the floor reports one begin event, none while it rests and sleeps, and an
-    end event once it is lifted away (events of core/pipeline.py from the touching pairs)."""
+    end event once it is lifted away (events of core/world/stages.py from the touching pairs)."""
     sim = Simulation(dim)
     floor = sim.add_body(HalfSpace(_up(dim), 0.0), kind="static")
     ball = sim.add_body(Ball(dim, 0.5), position=1.0 * _up(dim))

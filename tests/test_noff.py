@@ -1,4 +1,4 @@
-"""Tests of ``core/noff.py``: reading and writing nOFF.
+"""Tests of ``core/geometry/noff.py``: reading and writing nOFF.
 
 References (named again beside each check):
 

@@ -1,4 +1,4 @@
-"""Tests of ``core/polytopes.py``: the regular polytope builders.
+"""Tests of ``core/geometry/polytopes.py``: the regular polytope builders.
 
 References (named again beside each check):
 

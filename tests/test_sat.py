@@ -1,4 +1,4 @@
-"""Box/box separating-axis test (core/sat.py) against references outside the project.
+"""Box/box separating-axis test (core/collision/sat.py) against references outside the project.
 
 References:
 * candidate axes: scipy.linalg.null_space of the n-1 spanning directions (the hyperplane normal);

@@ -1,4 +1,4 @@
-"""Tests of ``core/shapes.py``: the shapes, their face structure, support functions and mass
+"""Tests of ``core/geometry/shapes.py``: the shapes, their face structure, support functions and mass
 properties, and the rejection of bad input.
 
 References (named again beside each check):

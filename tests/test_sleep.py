@@ -1,4 +1,4 @@
-"""Tests of islands, sleeping and waking (``core/sleep.py``) on contact sets built by hand.
+"""Tests of islands, sleeping and waking (``core/dynamics/sleep.py``) on contact sets built by hand.
 
 References: connected components checked against a brute-force breadth-first search; the sleep
 rule itself (an island sleeps when every member has rested for ``rest_time``; any disturbance

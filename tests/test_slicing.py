@@ -1,4 +1,4 @@
-"""Tests of core/slicing.py: sections of every shape kind and the 3-D -> 2-D projection helpers.
+"""Tests of core/geometry/slicing.py: sections of every shape kind and the 3-D -> 2-D projection helpers.
 
 Every geometric result is held against something outside the module: scipy.spatial
 (HalfspaceIntersection, ConvexHull), scipy.optimize.linprog, closed forms from handbooks, brute force,

@@ -1,4 +1,4 @@
-"""Tests of the contact solver (``core/solver.py``) on contact sets built by hand.
+"""Tests of the contact solver (``core/dynamics/solver.py``) on contact sets built by hand.
 
 References (named again beside each check):
 

@@ -67,7 +67,7 @@ class Settings:
         warm_start: start each row from last step's impulse matched by feature ids.
         solver_batching: how the vectorised solver batches rows: "point" (colour single points,
             pure Gauss-Seidel), "manifold" (colour manifolds, mass splitting inside one: faster,
-            stacks jitter) or "jacobi" (one batch, mass splitting); see core/solver.py.
+            stacks jitter) or "jacobi" (one batch, mass splitting); see core/dynamics/solver.py.
 
     Contact softness (an overlapping contact is an implicit spring-damper, see
     :func:`ndrigid.core.solver.soft_coefficients`)
@@ -630,7 +630,7 @@ class Simulation:
         self.settings = replace(self.settings, **changes).validated()
         return self
 
-    # -- scene queries (thin delegates to core/queries.py) ------------------------------------------
+    # -- scene queries (thin delegates to core/world/queries.py) ------------------------------------------
 
     def raycast(self, origin: Any, direction: Any, max_distance: Any = np.inf,
                 layer_mask: Any = ALL_LAYERS) -> Any:
