@@ -5,6 +5,7 @@ with its ``Settings``, the component kinds, contact events, scene queries and sl
 here imports esper or pygame.
 """
 
+from . import kernels
 from .algebra import Algebra, bivector_pairs, second_compound, skew, unskew
 from .errors import InputError, InputTypeError
 from .geometry.mass import MassProperties, inertia_from_covariance, rotate_inertia, shift_inertia
@@ -24,6 +25,7 @@ __all__ = [
     "ConvexPolytope",
     "HalfSpace",
     "InputError",
+    "kernels",
     "InputTypeError",
     "MassProperties",
     "Settings",

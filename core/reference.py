@@ -21,8 +21,9 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
   determinants, rather than the vectorised path's minor tables), with the same coherence
   preference, the same clipping of the incident and reference face edges, the same 2-face
   crossings in 5-D, the same plane-set feature ids and the same stable selection of the kept
-  points (core/collision/narrowphase.py, core/collision/sat.py, core/collision/clip.py). Pairs involving a general convex
-  polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`, which are per pair already;
+  points (core/collision/narrowphase.py, core/collision/sat.py, core/collision/clip.py). Pairs
+  involving a general convex polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`,
+  which are per pair already;
 * ``solve_impulses``: contact by contact, the same sequence (core/dynamics/solver.py): prepare each row
   (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias),
   warm start by key (else by the nearest last-step point of the same pair), biased iterations and

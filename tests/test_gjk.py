@@ -1,4 +1,4 @@
-"""Polytope contacts (core/collision/gjk.py: GJK, EPA, clipped manifolds) against references outside the project.
+"""Polytope contacts (core/collision/gjk.py: GJK, EPA, clipped manifolds) against outside references.
 
 References:
 * overlap verdict: scipy.optimize.linprog, the largest ball inside both halfspace systems (one
