@@ -441,8 +441,8 @@ def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int, n
                     member: list[list[bool]], tangent: list[Array] | None = None,
                     directions: list[Array] | None = None) -> list[_Point]:
     """Vertices (V, n) of A against the plane (u, d) of B: those of the incident facet
-    (:func:`_incident_facet`) whose height s is below the margin, at most ``cap`` of them: the
-    deepest, then the extremes along ``directions`` (none by default), then farthest-point sampling
+    (:func:`_incident_facet`) whose height s is below the margin, at most ``cap`` of them: with
+    no ``directions`` the deepest, else the extremes along them; then farthest-point sampling
     in the tangent coordinates (the plane's Householder basis by default), near-ties going to the
     lower vertex index (:func:`_select_points`), so a resting face keeps the same corners every step.
 
@@ -461,7 +461,7 @@ def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int, n
             tang = tangent
         ext = max(float(np.max(np.abs(t))) for t in tang)
         valid = _select_points(tang, valid, list(range(V)), cap, directions or [], 1e-9 * ext,
-                               [-x for x in s])
+                               None if directions else [-x for x in s])
     return [_Point(-u, world[v] - u * (0.5 * s[v]), -s[v], v) for v in range(V) if valid[v]]
 
 

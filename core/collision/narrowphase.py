@@ -363,8 +363,9 @@ def ball_box(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldP
 
 def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int,
             directions: Array | None = None) -> NDArray[np.bool_]:
-    """At most ``cap`` of the valid slots per row, by :func:`clip.select_points`: the deepest, then
-    the extremes along ``directions`` (none by default), then farthest-point sampling, with near-ties
+    """At most ``cap`` of the valid slots per row, by :func:`clip.select_points`: with no
+    ``directions`` (the default) the deepest, then farthest-point sampling; with directions the
+    extremes along them, then farthest-point sampling, with near-ties
     going to the lower vertex index, so that a resting face keeps the same corners every step (exact
     ties resolved by the last bit made them flicker).
 
@@ -383,7 +384,10 @@ def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int,
     ext = np.max(np.abs(T), axis=(1, 2))
     if directions is None:
         directions = np.zeros((0, T.shape[2]))
-    valid[over] = select_points(T, valid[over], codes, cap, directions, 1e-9 * ext, depth[over])
+    # with directions (a box face) the deepest is not taken first, as in box/box: on a resting face
+    # the deepest corner changes with every wobble, and with it the kept set and the warm-start keys
+    valid[over] = select_points(T, valid[over], codes, cap, directions, 1e-9 * ext,
+                                depth[over] if directions.shape[0] == 0 else None)
     return valid
 
 
@@ -429,7 +433,7 @@ def _box_facets(n: int) -> tuple[Array, NDArray[np.bool_]]:
 
 def box_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldPoints:
     """Box (A) on a half-space (B): the corners of the incident face (:func:`_incident_facet`) below
-    the margin; when there are more than the cap (n >= 5), the deepest, then the corners along the
+    the margin; when there are more than the cap (n >= 5), the corners along the
     :func:`clip.diagonal_directions` of the face's own axes, as box/box does (vertex v has +h_i
     where bit i of v is set)."""
     from .clip import diagonal_directions
