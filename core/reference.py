@@ -424,23 +424,45 @@ def _plane_basis(u: Array) -> Array:
     return np.delete(H, j, axis=0)
 
 
-def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int) -> list[_Point]:
-    """Vertices (V, n) of A against the plane (u, d) of B: those whose height s is below the margin,
-    at most ``cap`` of them: the deepest, then farthest-point sampling in the plane's tangent
-    coordinates, near-ties going to the lower vertex index (:func:`_select_points` with no extreme
-    directions), so a resting face keeps the same corners every step.
+def _incident_facet(s: list[float], normals: list[Array], member: list[list[bool]], u: Array) -> int:
+    """Among the facets through the deepest vertex (lowest s, lowest index on ties), the one whose
+    outward normal (world) is most anti-parallel to u (lowest index on ties): the incident facet
+    (core/collision/narrowphase.py ``_incident_facet``); member[f][v]: vertex v lies on facet f."""
+    deepest = min(range(len(s)), key=lambda v: (s[v], v))
+    best, best_dot = -1, np.inf
+    for f, nf in enumerate(normals):
+        if member[f][deepest]:
+            dot = float(np.einsum("i,i->", nf, u))
+            if dot < best_dot:
+                best, best_dot = f, dot
+    return best
+
+
+def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int, normals: list[Array],
+                    member: list[list[bool]], tangent: list[Array] | None = None,
+                    directions: list[Array] | None = None) -> list[_Point]:
+    """Vertices (V, n) of A against the plane (u, d) of B: those of the incident facet
+    (:func:`_incident_facet`) whose height s is below the margin, at most ``cap`` of them: with
+    no ``directions`` the deepest, else the extremes along them; then farthest-point sampling
+    in the tangent coordinates (the plane's Householder basis by default), near-ties going to the
+    lower vertex index (:func:`_select_points`), so a resting face keeps the same corners every step.
 
     The products (corners, heights, tangent coordinates) are evaluated by ``np.einsum`` one item at
     a time, which sums in the same order as the vectorised kernel's einsums.
     """
     V = world.shape[0]
     s = [float(np.einsum("i,i->", world[v], u)) - d for v in range(V)]
-    valid = [s[v] < margin for v in range(V)]
+    f = _incident_facet(s, normals, member, u)
+    valid = [s[v] < margin and member[f][v] for v in range(V)]
     if sum(valid) > cap:
-        basis = _plane_basis(u)
-        tang = [np.einsum("i,ki->k", world[v], basis) for v in range(V)]
+        if tangent is None:
+            basis = _plane_basis(u)
+            tang = [np.einsum("i,ki->k", world[v], basis) for v in range(V)]
+        else:
+            tang = tangent
         ext = max(float(np.max(np.abs(t))) for t in tang)
-        valid = _select_points(tang, valid, list(range(V)), cap, [], 1e-9 * ext, [-x for x in s])
+        valid = _select_points(tang, valid, list(range(V)), cap, directions or [], 1e-9 * ext,
+                               None if directions else [-x for x in s])
     return [_Point(-u, world[v] - u * (0.5 * s[v]), -s[v], v) for v in range(V) if valid[v]]
 
 
@@ -455,15 +477,35 @@ def _box_corners(c: _Collider) -> Array:
 
 
 def _box_halfspace(A: _Collider, B: _Collider, margin: float) -> list[_Point]:
+    """The corners of A's incident face; over the cap, the deepest, then the corners along the
+    diagonals of the face's own axes (tangent coordinates: the local corner coordinates on every
+    axis but the face's)."""
     u, d = _plane_of(B)
-    return _vertices_plane(_box_corners(A), u, d, margin, _vertex_cap(A.pos.shape[0]))
+    n = A.pos.shape[0]
+    world = _box_corners(A)
+    V = 1 << n
+    # facet 2i + b is the face x_i = (2b - 1) h_i
+    normals, member = [], []
+    for i in range(n):
+        for b in (0, 1):
+            normals.append(np.einsum("ij,j->i", A.rot, np.eye(n)[i] * (2.0 * b - 1.0)))
+            member.append([((v >> i) & 1) == b for v in range(V)])
+    s = [float(np.einsum("i,i->", world[v], u)) - d for v in range(V)]
+    axis = _incident_facet(s, normals, member, u) // 2
+    local = [np.array([A.half[i] if (v >> i) & 1 else -A.half[i] for i in range(n)]) for v in range(V)]
+    tang = [np.array([x[i] for i in range(n) if i != axis]) for x in local]
+    cap = _vertex_cap(n)
+    return _vertices_plane(world, u, d, margin, cap, normals, member, tang, _diagonals(n - 1, cap))
 
 
 def _polytope_halfspace(A: _Collider, B: _Collider, margin: float, store: Any) -> list[_Point]:
     u, d = _plane_of(B)
-    V = np.asarray(store.get(A.key).vertices)
+    shape = store.get(A.key)
+    V = np.asarray(shape.vertices)
     world = np.array([A.pos + np.einsum("ij,j->i", A.rot, x) for x in V])
-    return _vertices_plane(world, u, d, margin, _vertex_cap(A.pos.shape[0]))
+    normals = [np.einsum("ij,j->i", A.rot, nf) for nf in np.asarray(shape.facet_normals)]
+    member = [[v in set(int(x) for x in fv) for v in range(len(V))] for fv in shape.facet_vertices]
+    return _vertices_plane(world, u, d, margin, _vertex_cap(A.pos.shape[0]), normals, member)
 
 
 def _convex(alg: Algebra, A: _Collider, B: _Collider, margin: float, store: Any) -> list[_Point]:
@@ -591,6 +633,12 @@ def _diagonals(d: int, cap: int) -> list[Array]:
     pats = [np.array([1.0 if (q >> i) & 1 else -1.0 for i in range(d)]) for q in range(1 << d)]
     if len(pats) > cap:
         pats = [pats[q] for q in range(1 << d) if bin(q).count("1") % 2 == 0]
+    if len(pats) > cap and d < cap:
+        # rows of a Sylvester-Hadamard matrix of order cap on the columns 1, 2, 4, 7, 3, 5, 6 (cap 8)
+        powers = [1 << i for i in range(cap.bit_length() - 1)]
+        first = powers + ([cap - 1] if cap - 1 not in powers else [])
+        cols = (first + [c for c in range(1, cap) if c not in first])[:d]
+        pats = [np.array([1.0 if bin(q & c).count("1") % 2 else -1.0 for c in cols]) for q in range(cap)]
     return pats[:cap]
 
 

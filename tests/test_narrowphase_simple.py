@@ -100,10 +100,16 @@ def test_tilted_box_on_tilted_plane_matches_brute_force_corners(dim: int, rng: n
     pos += (dw + 0.05 - uw @ pos) * uw  # centre 5 cm above the plane: deep corners below it
     sim.add_body(Box(h), position=pos, rotor=R)
     c, _, _ = _collide(sim)
-    corners = pos + _corners(h) @ M.T
+    local = _corners(h)
+    corners = pos + local @ M.T
     height = corners @ uw - dw
     margin = sim.settings.speculative_margin
-    within = np.sort(-height[height < margin])[::-1]
+    # candidates are the corners of the incident face: the face through the deepest corner whose
+    # outward normal is most anti-parallel to the plane's (reference/incident face construction)
+    deepest = local[np.argmin(height)]
+    axis = int(np.argmax(np.abs(M.T @ uw)))
+    on_face = np.isclose(local[:, axis], deepest[axis])
+    within = np.sort(-height[(height < margin) & on_face])[::-1]
     cap = min(2 ** (dim - 1), 8)
     assert c.count == min(cap, within.size)
     assert c.depth.max() == pytest.approx(within[0], abs=1e-12)  # the deepest corner is always kept

@@ -195,7 +195,14 @@ def diagonal_directions(d: int, cap: int) -> Array:
 
     All 2^d patterns when they fit under ``cap`` (the corners of a box patch); else the patterns of
     even parity (2^(d-1) of them, the vertices of a demicube: they still span every tangent direction
-    and are centrally symmetric for d >= 2), cut to ``cap`` in lexicographic order if still too many.
+    and are centrally symmetric for d >= 2). When even those are too many (d >= 5 under a cap of 8),
+    the rows of a Sylvester-Hadamard matrix of order ``cap`` restricted to d of its non-constant
+    columns (pattern q has +1 on axis k where q & c_k has an odd number of set bits, columns
+    c = 1, 2, 4, 7, 3, 5, 6, ...): the columns are orthogonal and sum to zero, so the patterns
+    average to the origin and span all d axes, and the origin (the middle of the patch) is inside
+    their hull. (The first ``cap`` even patterns in lexicographic order, the rule before, all had -1
+    on the last axis for d = 5: a 6-D box face kept the corners of one half only and tipped over.)
+    For d = 4 under a cap of 8 the construction gives the same 8 even patterns.
     (D, d) float, D <= cap.
     """
     if d == 0:
@@ -204,7 +211,19 @@ def diagonal_directions(d: int, cap: int) -> Array:
     signs = np.where(bits == 1, 1.0, -1.0)
     if len(signs) > cap:
         signs = signs[bits.sum(axis=1) % 2 == 0]
+    if len(signs) > cap and d < cap:
+        cols = _hadamard_columns(cap)[:d]
+        odd = np.array([[bin(q & c).count("1") % 2 for c in cols] for q in range(cap)])
+        signs = np.where(odd == 1, 1.0, -1.0)
     return signs[:cap]
+
+
+def _hadamard_columns(cap: int) -> list[int]:
+    """Non-zero column indices < ``cap`` (a power of 2): the powers of two, then their full parity
+    (``cap - 1``), then the rest ascending: for 8, ``[1, 2, 4, 7, 3, 5, 6]``."""
+    powers = [1 << i for i in range(cap.bit_length() - 1)]
+    first = powers + ([cap - 1] if cap - 1 not in powers else [])
+    return first + [c for c in range(1, cap) if c not in first]
 
 
 def _argmax_by_code(score: Array, codes: IntArray, live: BoolArray, quantum: Array | float) -> IntArray:

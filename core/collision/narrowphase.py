@@ -361,12 +361,15 @@ def ball_box(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldP
     return ManifoldPoints(keep.astype(np.int64), -out_w, 0.5 * (box_pt + ball_pt), depth[keep], feature)
 
 
-def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int) -> NDArray[np.bool_]:
-    """At most ``cap`` of the valid slots per row, by :func:`clip.select_points`: the deepest, then
-    farthest-point sampling, with near-ties going to the lower vertex index, so that a resting face
-    keeps the same corners every step (exact ties resolved by the last bit made them flicker).
+def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int,
+            directions: Array | None = None) -> NDArray[np.bool_]:
+    """At most ``cap`` of the valid slots per row, by :func:`clip.select_points`: with no
+    ``directions`` (the default) the deepest, then farthest-point sampling; with directions the
+    extremes along them, then farthest-point sampling, with near-ties
+    going to the lower vertex index, so that a resting face keeps the same corners every step (exact
+    ties resolved by the last bit made them flicker).
 
-    tangent: (Q, V, n-1) coordinates in the contact plane; depth, valid: (Q, V). Rows with at most ``cap``
+    tangent: (Q, V, d) coordinates in the contact plane; depth, valid: (Q, V). Rows with at most ``cap``
     valid slots keep them all. Loops over the cap (<= 8), vectorised over rows.
     """
     from .clip import select_points
@@ -379,57 +382,105 @@ def _reduce(tangent: Array, depth: Array, valid: NDArray[np.bool_], cap: int) ->
     V = T.shape[1]
     codes = np.broadcast_to(np.arange(V, dtype=np.int64), (over.size, V))
     ext = np.max(np.abs(T), axis=(1, 2))
-    # no extreme directions: farthest-point sampling from the deepest (a tilted body keeps its deepest
-    # corner; on a resting 5-D box face it keeps the 8 even corners, a demicube), with stable ties
-    valid[over] = select_points(T, valid[over], codes, cap, np.zeros((0, T.shape[2])), 1e-9 * ext,
-                                depth[over])
+    if directions is None:
+        directions = np.zeros((0, T.shape[2]))
+    # with directions (a box face) the deepest is not taken first, as in box/box: on a resting face
+    # the deepest corner changes with every wobble, and with it the kept set and the warm-start keys
+    valid[over] = select_points(T, valid[over], codes, cap, directions, 1e-9 * ext,
+                                depth[over] if directions.shape[0] == 0 else None)
     return valid
 
 
-def _vertices_plane(world: Array, u: Array, d: Array, margin: Array, cap: int) -> ManifoldPoints:
-    """Vertices (Q, V, n) against planes (u (Q, n), d (Q,)), the vertex body being A.
+def _incident_facet(s: Array, normals: Array, member: NDArray[np.bool_], u: Array) -> IntArray:
+    """Each row's incident facet (Q,): among the facets through the deepest vertex (lowest height
+    s (Q, V), lowest index on ties), the one whose outward normal (normals (Q, F, n), world) is most
+    anti-parallel to the plane normal u (Q, n); member (F, V) says which vertices lie on which facet.
 
-    A vertex at signed height s = u . x - d is kept while s < margin; point x - u s / 2 (midway to
-    the plane), depth -s, normal -u, feature = vertex index. Tangent coordinates for the reduction
-    are taken in the Householder basis of u (:func:`clip.tangent_basis`), a fixed frame for a fixed
-    plane.
+    This is the incident face of the reference-face/incident-face construction of box/box
+    (:mod:`.sat`), with the half-space as the reference: only the facet facing the plane gives
+    support points. Taking every vertex below the margin instead let a thin body's upper vertices,
+    which project onto the same tangent points as its lower ones, tie with them in the point
+    selection, and a manifold of upper (speculative) corners holds nothing up: a resting slab sank.
     """
-    from .clip import tangent_basis
+    deepest = np.argmin(s, axis=1)
+    dots = np.einsum("qfi,qi->qf", normals, u)
+    dots = np.where(member[:, deepest].T, dots, np.inf)
+    return np.argmin(dots, axis=1).astype(np.int64)
 
-    s = np.einsum("qvi,qi->qv", world, u) - d[:, None]
-    valid = s < margin[:, None]
-    tangent = np.einsum("qvi,qki->qvk", world, tangent_basis(u))
-    valid = _reduce(tangent, -s, valid, cap)
+
+def _plane_points(world: Array, s: Array, u: Array, valid: NDArray[np.bool_], tangent: Array, cap: int,
+                  directions: Array | None = None) -> ManifoldPoints:
+    """Candidate vertices (Q, V, n) at heights s (Q, V) above planes u (Q, n), the vertex body being
+    A, reduced to ``cap`` by :func:`_reduce` in the tangent coordinates ``tangent`` (Q, V, d).
+
+    Point x - u s / 2 (midway to the plane), depth -s, normal -u, feature = vertex index.
+    """
+    valid = _reduce(tangent, -s, valid, cap, directions)
     q, v = np.nonzero(valid)
     sv = s[q, v]
     point = world[q, v] - u[q] * (0.5 * sv)[:, None]
     return ManifoldPoints(q.astype(np.int64), -u[q], point, -sv, v.astype(np.int64))
 
 
+def _box_facets(n: int) -> tuple[Array, NDArray[np.bool_]]:
+    """Facet 2i + b of a box is the face x_i = (2b - 1) h_i: local outward normals (2n, n) and
+    vertex sets (2n, 2^n) (vertex v has +h_i where bit i of v is set)."""
+    bits = (np.arange(1 << n)[None, :] >> np.arange(n)[:, None]) & 1  # (n, 2^n)
+    member = np.stack([bits == 0, bits == 1], axis=1).reshape(2 * n, 1 << n)
+    normals = np.repeat(np.eye(n), 2, axis=0) * np.tile([-1.0, 1.0], n)[:, None]
+    return normals, member
+
+
 def box_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldPoints:
-    """Box (A) on a half-space (B): all 2^n corners (vertex v has +h_i where bit i of v is set)."""
+    """Box (A) on a half-space (B): the corners of the incident face (:func:`_incident_facet`) below
+    the margin; when there are more than the cap (n >= 5), the corners along the
+    :func:`clip.diagonal_directions` of the face's own axes, as box/box does (vertex v has +h_i
+    where bit i of v is set)."""
+    from .clip import diagonal_directions
+
     n = c.pos.shape[1]
     u, d = _world_planes(c, B)
     bits = (np.arange(1 << n)[:, None] >> np.arange(n)[None, :]) & 1
     signs = np.where(bits == 1, 1.0, -1.0)  # (2^n, n), the Box.vertices order
     local = signs[None] * c.half[A][:, None, :]
     world = c.pos[A][:, None, :] + np.einsum("qij,qvj->qvi", c.rot[A], local)
-    return _vertices_plane(world, u, d, margin, manifold_cap(n))
+    s = np.einsum("qvi,qi->qv", world, u) - d[:, None]
+    fn, member = _box_facets(n)
+    f = _incident_facet(s, np.einsum("qij,fj->qfi", c.rot[A], fn), member, u)
+    valid = (s < margin[:, None]) & member[f]
+    # tangent coordinates: the face's own axes (every box axis but the face's, ascending)
+    tax = np.argsort(np.arange(n)[None, :] == (f // 2)[:, None], axis=1, kind="stable")[:, : n - 1]
+    tangent = np.take_along_axis(local, np.broadcast_to(tax[:, None, :], local.shape[:2] + (n - 1,)), axis=2)
+    cap = manifold_cap(n)
+    return _plane_points(world, s, u, valid, tangent, cap, diagonal_directions(n - 1, cap))
 
 
 def polytope_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array,
                        store: ShapeStore) -> ManifoldPoints:
-    """Convex polytope (A) on a half-space (B): its vertices, grouped per shape (a loop over shapes)."""
+    """Convex polytope (A) on a half-space (B): the vertices of its incident facet
+    (:func:`_incident_facet`) below the margin, reduced by farthest-point sampling in the
+    Householder basis of the plane normal (:func:`clip.tangent_basis`), a fixed frame for a fixed
+    plane; grouped per shape (a loop over shapes)."""
+    from .clip import tangent_basis
+
     n = c.pos.shape[1]
     u, d = _world_planes(c, B)
     keys = c.key[A]
     parts, offsets = [], []
     for k in np.unique(keys):
         sel = np.flatnonzero(keys == k)
-        V = np.asarray(store.get(int(k)).vertices)
+        shape = store.get(int(k))
+        V = np.asarray(shape.vertices)
+        member = np.zeros((len(shape.facet_vertices), len(V)), dtype=bool)
+        for j, fv in enumerate(shape.facet_vertices):  # a loop over the facets of one shape
+            member[j, fv] = True
         a = A[sel]
         world = c.pos[a][:, None, :] + np.einsum("qij,vj->qvi", c.rot[a], V)
-        mp = _vertices_plane(world, u[sel], d[sel], margin[sel], manifold_cap(n))
+        s = np.einsum("qvi,qi->qv", world, u[sel]) - d[sel][:, None]
+        normals = np.einsum("qij,fj->qfi", c.rot[a], np.asarray(shape.facet_normals))
+        valid = (s < margin[sel][:, None]) & member[_incident_facet(s, normals, member, u[sel])]
+        tangent = np.einsum("qvi,qki->qvk", world, tangent_basis(u[sel]))
+        mp = _plane_points(world, s, u[sel], valid, tangent, manifold_cap(n))
         parts.append(mp._replace(pair=sel[mp.pair]))
         offsets.append(0)
     return ManifoldPoints.concat(parts, offsets, n)
