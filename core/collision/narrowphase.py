@@ -24,10 +24,12 @@ index; ball/box the box feature holding the closest point, as the base-3 code of
 (-1, 0, +1: on the low face, between, on the high face). Compound pieces mix their piece indices
 into the feature (a 64-bit multiply-xorshift), so features stay unique within a body pair.
 
-Vertex-plane manifolds keep at most ``min(2^(n-1), 8)`` points: a box face down on a plane has
-2^(n-1) corners, which are all kept up to n = 4; beyond that (and for thin boxes or polytope facets
-with many vertices) the deepest point is kept and then, by farthest-point sampling in the tangent
-plane, the points that preserve the extent of the support patch.
+Vertex-plane manifolds take their candidates from the incident facet only (the facet through the
+deepest vertex that faces the plane) and keep at most ``min(2^(n-1), 8)`` points: a box face down
+on a plane has 2^(n-1) corners, which are all kept up to n = 4; beyond that a box keeps the corners
+along the diagonals of its face's own axes (as box/box does), and a polytope facet with many
+vertices keeps the deepest point and then, by farthest-point sampling in the tangent plane, the
+points that preserve the extent of the support patch.
 
 Sensors: pairs with a sensor body produce no contact rows; they are reported in
 ``sensor_touching`` when some point has depth >= 0. ``touching`` lists the other pairs with a point
@@ -38,6 +40,7 @@ a body falling asleep on the ground does not report a spurious end event.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 from typing import Any
 
@@ -455,6 +458,21 @@ def box_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array) -> Mani
     return _plane_points(world, s, u, valid, tangent, cap, diagonal_directions(n - 1, cap))
 
 
+_MEMBERS: weakref.WeakKeyDictionary[Any, NDArray[np.bool_]] = weakref.WeakKeyDictionary()
+
+
+def _facet_members(shape: Any) -> NDArray[np.bool_]:
+    """(F, V) table of which vertices lie on which facet of a polytope, built once per shape
+    (shapes are immutable)."""
+    got = _MEMBERS.get(shape)
+    if got is None:
+        got = np.zeros((len(shape.facet_vertices), len(shape.vertices)), dtype=bool)
+        for j, fv in enumerate(shape.facet_vertices):  # a loop over the facets of one shape, once
+            got[j, fv] = True
+        _MEMBERS[shape] = got
+    return got
+
+
 def polytope_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array,
                        store: ShapeStore) -> ManifoldPoints:
     """Convex polytope (A) on a half-space (B): the vertices of its incident facet
@@ -471,9 +489,7 @@ def polytope_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array,
         sel = np.flatnonzero(keys == k)
         shape = store.get(int(k))
         V = np.asarray(shape.vertices)
-        member = np.zeros((len(shape.facet_vertices), len(V)), dtype=bool)
-        for j, fv in enumerate(shape.facet_vertices):  # a loop over the facets of one shape
-            member[j, fv] = True
+        member = _facet_members(shape)
         a = A[sel]
         world = c.pos[a][:, None, :] + np.einsum("qij,vj->qvi", c.rot[a], V)
         s = np.einsum("qvi,qi->qv", world, u[sel]) - d[sel][:, None]
