@@ -6,7 +6,9 @@ Examples::
     python -m ndrigid.bench pile --dim 4 --bodies 300 --compare      # vectorised vs scalar path
     python -m ndrigid.bench pyramid --dim 2 --bodies 100             # base 100: 5,050 boxes
     python -m ndrigid.bench spin broadphase boxes --dim 4 --bodies 10000 --json out.json
-    python -m ndrigid.bench --kernels                                  # algebra/shape/... kernels
+    python -m ndrigid.bench pile --dim 4 --kernels numpy compiled      # both paths, one table
+    python -m ndrigid.bench demo-rockfall --dim 5 --bodies 18          # a demo scene, as the demo builds it
+    python -m ndrigid.bench --micro                                    # algebra/shape/... micro-benchmarks
     python -m ndrigid.bench --plot docs/step_time.png                  # step time vs bodies, 2-D..5-D
 
 Timings are medians over the timed steps on one core (the harness pins BLAS to one thread before
@@ -29,6 +31,8 @@ import numpy as np  # noqa: E402
 
 from .scenes import KEPT_STAGES, SCENES, TIMED_STAGES  # noqa: E402
 
+KERNEL_PATHS = ("compiled", "numpy")
+
 
 def _peak_rss_mb() -> float:
     try:
@@ -40,11 +44,24 @@ def _peak_rss_mb() -> float:
 
 
 def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0,
-              reference: bool = False) -> dict[str, Any]:
-    """Build a scene, settle it, time ``steps`` steps; return one JSON-ready record."""
+              reference: bool = False, kernels: str = "compiled") -> dict[str, Any]:
+    """Build a scene, settle it, time ``steps`` steps; return one JSON-ready record.
+
+    ``kernels``: "compiled" (numba kernels where they exist, the default of ``Settings``) or
+    "numpy" (the vectorised numpy path everywhere).
+    """
     if scene not in SCENES:
         raise SystemExit(f"scene: expected one of {sorted(SCENES)}, got {scene!r}")
+    if kernels not in KERNEL_PATHS:
+        raise SystemExit(f"kernels: expected one of {KERNEL_PATHS}, got {kernels!r}")
     sim, warmup = SCENES[scene](dim, bodies, seed)
+    compiled = kernels == "compiled"
+    if compiled:
+        from ndrigid.core import kernels as _k
+
+        if not _k.available():
+            raise SystemExit("--kernels compiled: numba is not available (or NDRIGID_KERNELS=numpy is set)")
+    sim.with_settings(compiled=compiled)
     timed = TIMED_STAGES[scene]
     keep = KEPT_STAGES[scene]
     if keep is not None:
@@ -83,7 +100,7 @@ def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0,
         "dim": dim,
         "bodies": int(sim.count),
         "steps": steps,
-        "path": "reference" if reference else "vectorised",
+        "path": "reference" if reference else kernels,
         "median_step_ms": float(np.median(step_ms)),
         "p90_step_ms": float(np.percentile(step_ms, 90)),
         "stage_ms": {k: float(np.median(v)) for k, v in stage_ms.items() if v},
@@ -95,13 +112,13 @@ def run_scene(scene: str, dim: int, bodies: int, steps: int, seed: int = 0,
 
 
 def _print_table(rows: list[dict[str, Any]]) -> None:
-    head = f"{'scene':<11}{'path':<11}{'dim':>4}{'bodies':>8}{'steps':>6}{'median ms':>11}{'p90 ms':>9}" \
+    head = f"{'scene':<15}{'path':<11}{'dim':>4}{'bodies':>8}{'steps':>6}{'median ms':>11}{'p90 ms':>9}" \
            f"{'contacts':>9}{'max depth':>10}  stages (median ms)"
     print(head)
     print("-" * len(head))
     for r in rows:
         stages = ", ".join(f"{k} {v:.2f}" for k, v in r["stage_ms"].items())
-        print(f"{r['scene']:<11}{r['path']:<11}{r['dim']:>4}{r['bodies']:>8}{r['steps']:>6}"
+        print(f"{r['scene']:<15}{r['path']:<11}{r['dim']:>4}{r['bodies']:>8}{r['steps']:>6}"
               f"{r['median_step_ms']:>11.3f}{r['p90_step_ms']:>9.3f}{r['contacts']:>9}"
               f"{r['max_depth']:>10.4f}  {stages}")
 
@@ -168,7 +185,9 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--reference", action="store_true", help="run the scalar reference path")
     p.add_argument("--compare", action="store_true", help="run both paths and print the speed ratio")
     p.add_argument("--json", metavar="FILE", help="write one JSON record per run to FILE")
-    p.add_argument("--kernels", action="store_true", help="run the kernel micro-benchmarks")
+    p.add_argument("--kernels", nargs="+", choices=KERNEL_PATHS, default=["compiled"],
+                   help="which paths to time: compiled (numba kernels, the default) and/or numpy")
+    p.add_argument("--micro", action="store_true", help="run the kernel micro-benchmarks")
     p.add_argument("--plot", metavar="PNG", help="plot pile step time vs bodies for 2-D..5-D")
     a = p.parse_args(argv)
     if a.dim < 2:
@@ -180,20 +199,29 @@ def main(argv: list[str] | None = None) -> int:
         if scene not in SCENES:
             p.error(f"scene: expected one of {', '.join(SCENES)}, got {scene!r}")
         if a.compare:
-            vec = run_scene(scene, a.dim, a.bodies, a.steps, a.seed, reference=False)
+            vec = run_scene(scene, a.dim, a.bodies, a.steps, a.seed, reference=False, kernels="numpy")
             ref = run_scene(scene, a.dim, a.bodies, max(3, a.steps // 10), a.seed, reference=True)
             rows += [vec, ref]
             ratio = ref["median_step_ms"] / vec["median_step_ms"]
             vec["speedup_over_reference"] = ratio
+        elif a.reference:
+            rows.append(run_scene(scene, a.dim, a.bodies, a.steps, a.seed, reference=True, kernels="numpy"))
         else:
-            rows.append(run_scene(scene, a.dim, a.bodies, a.steps, a.seed, reference=a.reference))
+            got = {k: run_scene(scene, a.dim, a.bodies, a.steps, a.seed, kernels=k) for k in a.kernels}
+            rows += list(got.values())
+            if len(got) == 2:
+                got["compiled"]["speedup_over_numpy"] = (got["numpy"]["median_step_ms"]
+                                                         / got["compiled"]["median_step_ms"])
     if rows:
         _print_table(rows)
         for r in rows:
             if "speedup_over_reference" in r:
                 print(f"{r['scene']} {r['dim']}-D {r['bodies']} bodies: vectorised is "
                       f"{r['speedup_over_reference']:.1f}x faster than the scalar reference path")
-    if a.kernels:
+            if "speedup_over_numpy" in r:
+                print(f"{r['scene']} {r['dim']}-D {r['bodies']} bodies: compiled is "
+                      f"{r['speedup_over_numpy']:.1f}x faster than the numpy path")
+    if a.micro:
         krows = _kernels()
         for r in krows:
             print(json.dumps(r))
@@ -205,7 +233,7 @@ def main(argv: list[str] | None = None) -> int:
         with open(a.json, "w", encoding="utf-8") as fh:
             json.dump(rows, fh, indent=1)
         print(f"wrote {len(rows)} records to {a.json}")
-    if not (a.scenes or a.kernels or a.plot):
+    if not (a.scenes or a.micro or a.plot):
         p.print_help()
     return 0
 

@@ -119,12 +119,45 @@ def build_boxes(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     return sim, 0
 
 
+def _demo_builder(name: str) -> SceneBuilder:
+    """A bench scene from the demo's own scene factory (the same builder the window uses).
+
+    The scene's per-frame script (the conveyor's pusher, for one) runs as a first stage of the
+    step, so the timed steps are the demo's physics frames; the esper adapter's sync is not part
+    of them (``bench.adapters`` measures it).
+    """
+
+    def build(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+        from ndrigid.demo import scenes as demo_scenes
+        from ndrigid.demo.world import DemoWorld
+
+        world = DemoWorld(dim)
+        info = demo_scenes.build_scene(name, world, bodies, seed=7 + seed)
+        sim = world.sim
+        clock = {"t": 0.0}
+
+        def tick(sim_: Simulation, dt: float) -> None:
+            if info.tick is not None:
+                info.tick(world, clock["t"])
+            clock["t"] += dt
+
+        sim.stages = [("demo_script", tick), *sim.stages]
+        sim.demo_world = world  # type: ignore[attr-defined]  # keeps the esper world alive
+        return sim, 60
+
+    build.__doc__ = f"The demo's {name!r} scene (``--bodies`` dynamic bodies; the demo's default is 18)."
+    return build
+
+
+DEMO_SCENES = ("rockfall", "billiards", "conveyor")
+
 SCENES: dict[str, SceneBuilder] = {
     "pile": build_pile,
     "pyramid": build_pyramid,
     "spin": build_spin,
     "broadphase": build_cloud,
     "boxes": build_boxes,
+    **{f"demo-{name}": _demo_builder(name) for name in DEMO_SCENES},
 }
 
 # which stages run in each scene (None: the whole pipeline)
@@ -134,6 +167,7 @@ KEPT_STAGES: dict[str, tuple[str, ...] | None] = {
     "spin": ("accelerate", "advance_poses"),
     "broadphase": ("find_pairs", "advance_poses"),
     "boxes": ("find_pairs", "find_contacts", "advance_poses"),
+    **{f"demo-{name}": None for name in DEMO_SCENES},
 }
 
 # which stages are timed for each scene (None: the whole step)
@@ -143,4 +177,5 @@ TIMED_STAGES: dict[str, tuple[str, ...] | None] = {
     "spin": ("accelerate", "advance_poses"),
     "broadphase": ("find_pairs",),
     "boxes": ("find_contacts",),
+    **{f"demo-{name}": None for name in DEMO_SCENES},
 }

@@ -131,6 +131,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from .. import kernels as _kernels
 from ..algebra import Algebra
 from ..state.components import DYNAMIC, Bodies
 from ..state.contacts import ContactSet, combine_friction
@@ -419,6 +420,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     w = n + k
     N = bodies.count
     batching = getattr(settings, "solver_batching", DEFAULT_BATCHING)
+    if batching == "point" and _kernels.use_compiled(settings):
+        return _solve_rows_compiled(alg, bodies, c, rows, dyn, lam_n, lam_t_world, sliding, dt, settings,
+                                    salt)
     a, b = c.body_a[rows], c.body_b[rows]
     sa, sb = dyn[a], dyn[b]
     colour = _batches(batching, a, b, sa, sb, c.key[rows] ^ np.int64(salt), c.manifold[rows], N)
@@ -607,6 +611,38 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     inv_perm[perm] = np.arange(perm.size)
     lam_t_w = np.einsum("md,mdi->mi", lam_t, D[:, 1:])
     return lam_n[inv_perm], lam_t_w[inv_perm], sliding_now[inv_perm]
+
+
+def _solve_rows_compiled(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn: NDArray[np.bool_],
+                         lam_n: Array, lam_t_world: Array, sliding: NDArray[np.bool_], dt: float,
+                         settings: Any, salt: int) -> tuple[Array, Array, NDArray[np.bool_]]:
+    """:func:`_solve_rows` under point batching, by the compiled kernel (same rows, same order)."""
+    n = alg.n
+    kern = _kernels.load("solver", n)
+    a = np.ascontiguousarray(c.body_a[rows])
+    b = np.ascontiguousarray(c.body_b[rows])
+    inv_m = np.where(dyn, bodies.inv_mass, 0.0)
+    inv_I = np.ascontiguousarray(bodies.world_inv_inertia() * dyn[:, None, None])
+    X = np.concatenate([bodies.velocity, bodies.angular_velocity], axis=1)
+    com = np.ascontiguousarray(bodies.centroids())
+    mu_s = combine_friction(bodies.static_friction[a], bodies.static_friction[b])
+    hertz = min(float(settings.spring_frequency), HERTZ_CAP / dt)
+    rate, mscale, iscale = soft_coefficients(hertz, float(settings.spring_damping_ratio), dt)
+    lam_n_out, lam_t_out, sliding_now, push = kern.solve(
+        a, b, np.ascontiguousarray(dyn[a]), np.ascontiguousarray(dyn[b]), c.key[rows] ^ np.int64(salt),
+        np.ascontiguousarray(c.manifold[rows]), np.ascontiguousarray(c.normal[rows]),
+        np.ascontiguousarray(c.point[rows]), np.ascontiguousarray(c.depth[rows]),
+        np.ascontiguousarray(c.friction[rows]), mu_s, np.ascontiguousarray(c.restitution[rows]),
+        np.ascontiguousarray(sliding), np.ascontiguousarray(lam_n, dtype=np.float64),
+        np.ascontiguousarray(lam_t_world, dtype=np.float64), X, inv_m, inv_I, com, float(dt),
+        int(settings.solver_passes), int(settings.bias_free_passes), float(rate), float(mscale),
+        float(iscale), float(settings.overlap_allowance), float(settings.separation_speed_cap),
+        float(settings.bounce_threshold), _STICK_TOL, _SLIP_SPEED)
+    moved = np.nonzero(dyn)[0]
+    bodies.velocity[moved] = X[moved, :n]
+    bodies.angular_velocity[moved] = X[moved, n:]
+    _push_positions(alg, bodies, moved, push[moved])
+    return lam_n_out, lam_t_out, sliding_now
 
 
 class _Batch:
