@@ -31,6 +31,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
+from .. import kernels as _kernels
 from ..algebra import Algebra
 from ..state.components import DYNAMIC, KINEMATIC, Bodies, body_frames
 
@@ -91,9 +92,22 @@ def gyroscopic_step(alg: Algebra, w_body: Array, inertia: Array, tau_body: Array
     return w2 * s[:, None]
 
 
+_MODE_CODES = {GYRO_NONE: 0, GYRO_EXPLICIT: 1, GYRO_IMPLICIT: 2}
+
+
 def accelerate(alg: Algebra, b: Bodies, gravity: Array, dt: float,
-                         gyroscopic: str = GYRO_IMPLICIT) -> None:
-    """Apply gravity, forces, torques, damping and the gyroscopic term to awake dynamic bodies."""
+               gyroscopic: str = GYRO_IMPLICIT, compiled: bool = False) -> None:
+    """Apply gravity, forces, torques, damping and the gyroscopic term to awake dynamic bodies.
+
+    ``compiled``: run the compiled kernel (``ndrigid.core.kernels``, family ``integrate``), which
+    does the same per body; the caller decides (``kernels.use_compiled(settings)``).
+    """
+    if compiled:
+        k = _kernels.load("integrate", alg.n)
+        k.accelerate(b.kind, b.awake, b.inv_mass, b.force, b.linear_damping, b.velocity, b.inv_inertia,
+                     b.rotor, b.principal_rotor, b.rotation, b.torque, b.angular_damping, b.angular_velocity,
+                     np.ascontiguousarray(gravity, dtype=np.float64), float(dt), _MODE_CODES[gyroscopic])
+        return
     active = (b.kind == DYNAMIC) & b.awake
     if not active.any():
         return
@@ -127,9 +141,16 @@ def accelerate(alg: Algebra, b: Bodies, gravity: Array, dt: float,
     b.angular_velocity[rows] = _matvec(C, w2)
 
 
-def advance_poses(alg: Algebra, b: Bodies, dt: float) -> None:
+def advance_poses(alg: Algebra, b: Bodies, dt: float, compiled: bool = False) -> None:
     """Move awake dynamic and kinematic bodies: centre of mass by h v, orientation by the exact
-    rotor exponential of h times the world angular velocity; refresh the rotation matrices."""
+    rotor exponential of h times the world angular velocity; refresh the rotation matrices.
+
+    ``compiled``: run the compiled kernel (as in :func:`accelerate`)."""
+    if compiled:
+        k = _kernels.load("integrate", alg.n)
+        k.advance_poses(b.kind, b.awake, b.velocity, b.angular_velocity, b.local_centroid, b.position,
+                        b.rotor, b.rotation, float(dt))
+        return
     active = ((b.kind == DYNAMIC) | (b.kind == KINEMATIC)) & b.awake
     if not active.any():
         return

@@ -641,7 +641,8 @@ def _solve_rows_compiled(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntA
     moved = np.nonzero(dyn)[0]
     bodies.velocity[moved] = X[moved, :n]
     bodies.angular_velocity[moved] = X[moved, n:]
-    _push_positions(alg, bodies, moved, push[moved])
+    _kernels.load("integrate", n).push_poses(moved, np.ascontiguousarray(push[moved]), bodies.local_centroid,
+                                             bodies.position, bodies.rotor, bodies.rotation)
     return lam_n_out, lam_t_out, sliding_now
 
 

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
+from .. import kernels as _kernels
 from ..collision import broadphase, narrowphase
 from ..dynamics import integrate as _integrate
 from ..dynamics import sleep, solver
@@ -92,11 +93,12 @@ def sleep_stages() -> list[tuple[str, Stage]]:
 
 
 def _stage_accelerate(sim: Simulation, dt: float) -> None:
-    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic)
+    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic,
+                          compiled=_kernels.use_compiled(sim.settings))
 
 
 def _stage_advance_poses(sim: Simulation, dt: float) -> None:
-    _integrate.advance_poses(sim.alg, sim.bodies, dt)
+    _integrate.advance_poses(sim.alg, sim.bodies, dt, compiled=_kernels.use_compiled(sim.settings))
 
 
 def default_stages() -> list[tuple[str, Stage]]:
