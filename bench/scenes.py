@@ -8,7 +8,11 @@ a pile has settled) and then times ``--steps`` steps.
   ``bodies`` (so base 100 means 5,050 boxes);
 * ``spin``: free bodies with random angular velocities, no gravity, far apart: integrate only;
 * ``broadphase``: moving bodies in a cloud, only the broadphase stage is timed;
-* ``boxes``: a dense cloud of turned boxes, only the narrowphase (box/box pairs) is timed.
+* ``boxes``: a dense cloud of turned boxes, only the narrowphase (box/box pairs) is timed;
+* ``empty``: a world with no bodies (the fixed cost of a step);
+* ``polytope-pair``: two convex polytopes resting face to face (24-cells in 4-D, orthoplexes in
+  other dimensions), no gravity; only the narrowphase is timed (one pair with its manifold);
+* ``demo-<name>``: the demo's own scenes, built by the demo's scene factory.
 """
 
 from __future__ import annotations
@@ -119,6 +123,39 @@ def build_boxes(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
     return sim, 0
 
 
+def build_empty(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+    """No bodies at all (``bodies`` is ignored): what a step costs before any work."""
+    return Simulation(dim), 0
+
+
+def build_polytope_pair(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
+    """Two polytopes face to face, slightly overlapping (``bodies`` is ignored)."""
+    from ndrigid.core.geometry.polytopes import cell_24, orthoplex
+
+    shape = cell_24() if dim == 4 else orthoplex(dim)
+    sim = Simulation(dim, gravity=np.zeros(dim), settings=Settings(sleep_enabled=False))
+    # put a facet of the first against a facet of the second: along that facet's normal
+    u = np.asarray(shape.facet_normals[0], dtype=float)
+    off = float(shape.facet_offsets[0])
+    sim.add_body(shape, position=np.zeros(dim))
+    sim.add_body(shape, position=(2.0 * off - 0.002) * u, rotor=_half_turn(sim, u))
+    return sim, 0
+
+
+def _half_turn(sim: Simulation, u: np.ndarray) -> np.ndarray:
+    """A rotor that turns u into -u (a half turn in a plane containing u)."""
+    n = sim.dim
+    j = int(np.argmin(np.abs(u)))
+    e = np.zeros(n)
+    e[j] = 1.0
+    v = e - (e @ u) * u
+    v /= np.linalg.norm(v)
+    B = np.zeros(sim.alg.k)
+    for p, (a, b) in enumerate(sim.alg.pairs):
+        B[p] = u[a] * v[b] - u[b] * v[a]
+    return sim.alg.rotor(np.pi * B)
+
+
 def _demo_builder(name: str) -> SceneBuilder:
     """A bench scene from the demo's own scene factory (the same builder the window uses).
 
@@ -157,6 +194,8 @@ SCENES: dict[str, SceneBuilder] = {
     "spin": build_spin,
     "broadphase": build_cloud,
     "boxes": build_boxes,
+    "empty": build_empty,
+    "polytope-pair": build_polytope_pair,
     **{f"demo-{name}": _demo_builder(name) for name in DEMO_SCENES},
 }
 
@@ -167,6 +206,8 @@ KEPT_STAGES: dict[str, tuple[str, ...] | None] = {
     "spin": ("accelerate", "advance_poses"),
     "broadphase": ("find_pairs", "advance_poses"),
     "boxes": ("find_pairs", "find_contacts", "advance_poses"),
+    "empty": None,
+    "polytope-pair": ("find_pairs", "find_contacts"),
     **{f"demo-{name}": None for name in DEMO_SCENES},
 }
 
@@ -177,5 +218,7 @@ TIMED_STAGES: dict[str, tuple[str, ...] | None] = {
     "spin": ("accelerate", "advance_poses"),
     "broadphase": ("find_pairs",),
     "boxes": ("find_contacts",),
+    "empty": None,
+    "polytope-pair": ("find_contacts",),
     **{f"demo-{name}": None for name in DEMO_SCENES},
 }

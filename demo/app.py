@@ -548,6 +548,60 @@ def _display_available() -> bool:
     return bool(os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"))
 
 
+def precompile_with_splash(pygame: Any, screen: Any, dim: int) -> bool:
+    """Compile the dimension's kernels on a worker thread while the window shows the progress.
+
+    A warm cache returns at once. Returns False when the window was closed meanwhile. The physics
+    would compile on its first step anyway; doing it here keeps the window responsive and says
+    why the first start takes a while.
+    """
+    import threading
+
+    from ndrigid.core import kernels
+
+    if not kernels.available():
+        return True
+    todo = [f for f in kernels.all_families() if not kernels.is_warm(f, dim)]
+    if not todo:
+        return True
+    state = {"done": 0, "current": todo[0], "error": None}
+
+    def work() -> None:
+        try:
+            def progress(family: str, n: int, done: int, total: int) -> None:
+                state["done"] = done
+                state["current"] = todo[done] if done < total else family
+            kernels.precompile([dim], todo, progress)
+        except Exception as exc:  # reported on the splash and stderr; the step then falls back
+            state["error"] = exc
+
+    worker = threading.Thread(target=work, name="ndrigid-precompile", daemon=True)
+    worker.start()
+    print(f"ndrigid: compiling {dim}-D kernels, first run only ({', '.join(todo)})", file=sys.stderr)
+    font = pygame.font.Font(None, max(18, screen.get_height() // 22))
+    clock = pygame.time.Clock()
+    w, h = screen.get_size()
+    while worker.is_alive():
+        for ev in pygame.event.get():
+            if ev.type == pygame.QUIT:
+                return False
+        screen.fill((18, 20, 26))
+        text = f"compiling {dim}-D kernels, first run only: {state['current']} " \
+               f"({state['done'] + 1}/{len(todo)})"
+        img = font.render(text, True, (225, 228, 235))
+        screen.blit(img, ((w - img.get_width()) // 2, h // 2 - 30))
+        bar = pygame.Rect(w // 4, h // 2 + 10, w // 2, 12)
+        pygame.draw.rect(screen, (70, 76, 90), bar, 1)
+        fill = bar.copy()
+        fill.width = int(bar.width * state["done"] / len(todo))
+        pygame.draw.rect(screen, (120, 190, 140), fill)
+        pygame.display.flip()
+        clock.tick(15)
+    if state["error"] is not None:
+        print(f"ndrigid: compiling failed ({state['error']}); the first steps will retry", file=sys.stderr)
+    return True
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parse(argv)
     try:
@@ -572,6 +626,9 @@ def main(argv: list[str] | None = None) -> int:
     pygame.init()
     screen = pygame.display.set_mode((w, h))
     pygame.display.set_caption("ndrigid")
+    if not precompile_with_splash(pygame, screen, args.dim):
+        pygame.quit()
+        return 0
     app = App(pygame, args.dim, args.scene, (w, h), args.bodies)
     clock = pygame.time.Clock()
     running = True

@@ -31,10 +31,24 @@ def test_compare_runs_both_paths(tmp_path) -> None:  # type: ignore[no-untyped-d
     out = tmp_path / "cmp.json"
     assert main(["pile", "--dim", "3", "--bodies", "6", "--steps", "3", "--compare", "--json", str(out)]) == 0
     recs = json.loads(out.read_text())
-    assert [r["path"] for r in recs] == ["vectorised", "reference"]
+    assert [r["path"] for r in recs] == ["numpy", "reference"]
     assert recs[0]["speedup_over_reference"] > 0
     # the same scene: same bodies on both paths
     assert recs[0]["bodies"] == recs[1]["bodies"]
+
+
+def test_kernels_option_times_both_paths_in_one_table(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    from ndrigid.core import kernels
+
+    if not kernels.available():
+        pytest.skip("numba is not available")
+    out = tmp_path / "k.json"
+    assert main(["pile", "--dim", "3", "--bodies", "6", "--steps", "3", "--kernels", "numpy", "compiled",
+                 "--json", str(out)]) == 0
+    recs = json.loads(out.read_text())
+    assert [r["path"] for r in recs] == ["numpy", "compiled"]
+    assert recs[1]["speedup_over_numpy"] > 0 and recs[0]["bodies"] == recs[1]["bodies"]
+    assert "compiled is" in capsys.readouterr().out
 
 
 def test_bad_arguments_exit_with_a_message(capsys) -> None:  # type: ignore[no-untyped-def]

@@ -75,3 +75,41 @@ def test_headless_scene_runs_and_shows_bodies(dim: int, scene: str, tmp_path) ->
         assert np.mean(np.any(arr != np.array(palette.NIGHT_SLATE), axis=1)) > 0.1
     finally:
         pygame.quit()
+
+
+def test_precompile_splash_shows_progress_and_compiles_cold_families(monkeypatch: pytest.MonkeyPatch) -> None:
+    """With a cold cache the window compiles every family of the dimension on a worker thread and
+    draws a progress screen meanwhile; with a warm one it returns at once (nothing compiled)."""
+    import threading
+
+    from ndrigid.core import kernels
+    from ndrigid.demo.app import precompile_with_splash
+
+    if not kernels.available():
+        pytest.skip("numba is not available")
+    calls: list[tuple[list[int], list[str]]] = []
+    release = threading.Event()
+
+    def fake_precompile(dims, families, progress):  # type: ignore[no-untyped-def]
+        release.wait(2.0)  # long enough for the splash to draw a frame
+        calls.append((list(dims), list(families)))
+        for i, f in enumerate(families):
+            progress(f, dims[0], i + 1, len(families))
+        return {}
+
+    pygame.init()
+    try:
+        screen = pygame.display.set_mode((320, 240))
+        monkeypatch.setattr(kernels, "is_warm", lambda family, n: False)
+        monkeypatch.setattr(kernels, "precompile", fake_precompile)
+        threading.Timer(0.3, release.set).start()
+        assert precompile_with_splash(pygame, screen, 4)
+        assert calls == [([4], list(kernels.all_families()))]
+        lit = pygame.surfarray.array3d(screen).reshape(-1, 3)
+        assert (lit.max(axis=1) > 100).any()  # the progress text was drawn
+        calls.clear()
+        monkeypatch.setattr(kernels, "is_warm", lambda family, n: True)
+        assert precompile_with_splash(pygame, screen, 4)
+        assert calls == []
+    finally:
+        pygame.quit()

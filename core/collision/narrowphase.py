@@ -47,6 +47,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from .. import kernels as _kernels
 from ..algebra import Algebra
 from ..state.components import (
     SHAPE_BALL,
@@ -502,10 +503,12 @@ def polytope_halfspace(c: Colliders, A: IntArray, B: IntArray, margin: Array,
     return ManifoldPoints.concat(parts, offsets, n)
 
 
-def _box_box(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array) -> ManifoldPoints:
-    from .sat import box_box
+def _box_box(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array,
+             compiled: bool = False) -> ManifoldPoints:
+    from .sat import box_box, box_box_compiled
 
-    return box_box(alg, c.pos[A], c.rot[A], c.half[A], c.pos[B], c.rot[B], c.half[B], margin)
+    fn = box_box_compiled if compiled else box_box
+    return fn(alg, c.pos[A], c.rot[A], c.half[A], c.pos[B], c.rot[B], c.half[B], margin)
 
 
 def _convex_pairs(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array,
@@ -528,10 +531,11 @@ def _convex_pairs(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: 
 
 
 def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, margin: Array,
-                      store: ShapeStore) -> ManifoldPoints:
+                      store: ShapeStore, compiled: bool = False) -> ManifoldPoints:
     """Contact points of collider pairs (ia, ib) (Q,) with margins (Q,); pair = index into ia.
 
-    Normals point from ``ia`` to ``ib`` whatever the kind order used inside.
+    Normals point from ``ia`` to ``ib`` whatever the kind order used inside. ``compiled``: use the
+    compiled kernels where a pair kind has one (``ndrigid.core.kernels``; same rows, same order).
     """
     n = alg.n
     Q = ia.size
@@ -558,7 +562,7 @@ def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, ma
         elif lo == SHAPE_POLYTOPE and hi == SHAPE_HALFSPACE:
             mp = polytope_halfspace(c, a, b, m, store)
         elif lo == SHAPE_BOX and hi == SHAPE_BOX:
-            mp = _box_box(alg, c, a, b, m)
+            mp = _box_box(alg, c, a, b, m, compiled)
         elif hi == SHAPE_POLYTOPE:  # ball, box or polytope against a polytope
             mp = _convex_pairs(alg, c, a, b, m, store)
         else:  # half-space/half-space: no contact
@@ -643,7 +647,7 @@ def find_contacts(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[An
     t = np.arange(vp.size) - (np.cumsum(vcount) - vcount)[vp]
     ia = start[sa][vp] + t // nb[vp]
     ib = start[sb][vp] + t % nb[vp]
-    mp = collide_colliders(alg, col, ia, ib, margin[vp], store)
+    mp = collide_colliders(alg, col, ia, ib, margin[vp], store, _kernels.use_compiled(settings))
     pair = vp[mp.pair]
     feature = _mix_pieces(mp.feature, col.piece[ia[mp.pair]], col.piece[ib[mp.pair]])
 

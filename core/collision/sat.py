@@ -70,7 +70,7 @@ from .clip import clip_segments, diagonal_directions, manifold_cap, select_point
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
 
-__all__ = ["BoxSat", "box_axes", "box_axis_count", "box_box", "box_sat"]
+__all__ = ["BoxSat", "box_axes", "box_axis_count", "box_box", "box_box_compiled", "box_sat", "kernel_tables"]
 
 # Coherence tolerances (relative, absolute in metres): a face axis wins over a mixed one within 5 %,
 # A's faces over B's within 2 % (chosen on our resting stacks: fewer flips of the reference face).
@@ -220,6 +220,74 @@ def _tables(n: int) -> _Tables:
         edge_axis=np.array(axes, dtype=np.int64).reshape(n, -1),
         crossings=tuple(crossings),
     )
+
+
+@cache
+def kernel_tables(n: int) -> tuple[Any, ...]:
+    """The tables of dimension n flattened for the compiled kernel (``kernels/boxbox_tpl.py``):
+    padded arrays in place of the per-size and per-crossing tuples, and the selection directions."""
+    tab = _tables(n)
+    w = max(n, 1)
+    rows_c, rows_s, lens = [], [], []
+    for c_flat, sub, _sign in tab.minor_terms:
+        for e in range(c_flat.shape[0]):
+            rc = np.zeros(w, np.int64)
+            rs = np.zeros(w, np.int64)
+            rc[: c_flat.shape[1]] = c_flat[e]
+            rs[: sub.shape[1]] = sub[e]
+            rows_c.append(rc)
+            rows_s.append(rs)
+            lens.append(c_flat.shape[1])
+    mt_c = np.array(rows_c, np.int64).reshape(-1, w)
+    mt_sub = np.array(rows_s, np.int64).reshape(-1, w)
+    mt_len = np.array(lens, np.int64)
+    G = len(tab.crossings)
+    nab = max([c[0].shape[0] for c in tab.crossings], default=1)
+    nsa = max([c[3].shape[0] for c in tab.crossings], default=1)
+    nsb = max([c[4].shape[0] for c in tab.crossings], default=1)
+    cr_j = np.zeros(G, np.int64)
+    cr_nab = np.zeros(G, np.int64)
+    cr_nsa = np.zeros(G, np.int64)
+    cr_nsb = np.zeros(G, np.int64)
+    cr_A = np.zeros((G, nab, w), np.int64)
+    cr_F = np.zeros((G, nab, w), np.int64)
+    cr_B = np.zeros((G, nab, w), np.int64)
+    cr_sA = np.zeros((G, nsa, w))
+    cr_sB = np.zeros((G, nsb, w))
+    for g, (cA, cF, cB, sA, sB) in enumerate(tab.crossings):
+        cr_j[g] = cA.shape[1]
+        cr_nab[g], cr_nsa[g], cr_nsb[g] = cA.shape[0], sA.shape[0], sB.shape[0]
+        cr_A[g, : cA.shape[0], : cA.shape[1]] = cA
+        cr_F[g, : cF.shape[0], : cF.shape[1]] = cF
+        cr_B[g, : cB.shape[0], : cB.shape[1]] = cB
+        cr_sA[g, : sA.shape[0], : sA.shape[1]] = sA
+        cr_sB[g, : sB.shape[0], : sB.shape[1]] = sB
+    cap = manifold_cap(n)
+    dirs = np.ascontiguousarray(diagonal_directions(n - 1, cap), dtype=np.float64)
+    nm = tab.mixed_idx.shape[0]
+    return (mt_c, mt_sub, mt_len, int(tab.n_minors), np.ascontiguousarray(tab.mixed_idx),
+            np.ascontiguousarray(tab.mixed_sign, dtype=np.float64).reshape(nm, 2 * n),
+            np.ascontiguousarray(tab.mixed_src).reshape(nm, n - 1), np.ascontiguousarray(tab.mixed_in_a),
+            np.ascontiguousarray(tab.mixed_in_b), np.ascontiguousarray(tab.edge_start, dtype=np.float64),
+            np.ascontiguousarray(tab.edge_axis), cr_j, cr_nab, cr_A, cr_F, cr_B, cr_nsa, cr_sA, cr_nsb, cr_sB,
+            dirs, int(cap))
+
+
+def box_box_compiled(alg: Algebra, pos_a: Array, rot_a: Array, half_a: Array, pos_b: Array, rot_b: Array,
+                     half_b: Array, margin: Array) -> ManifoldPoints:
+    """:func:`box_box` by the compiled kernel (same rows in the same order; inputs already checked)."""
+    from .. import kernels
+
+    n = alg.n
+    if pos_a.shape[0] == 0:
+        return ManifoldPoints.empty(n)
+    k = kernels.load("boxbox", n)
+    c = np.ascontiguousarray
+    pair, normal, point, depth, feature = k.box_box(
+        c(pos_a, dtype=np.float64), c(rot_a, dtype=np.float64), c(half_a, dtype=np.float64),
+        c(pos_b, dtype=np.float64), c(rot_b, dtype=np.float64), c(half_b, dtype=np.float64),
+        c(np.broadcast_to(margin, (pos_a.shape[0],)), dtype=np.float64), *kernel_tables(n))
+    return ManifoldPoints(pair, normal, point, depth, feature)
 
 
 def _mixed_axes(tab: _Tables, C: Array) -> Array:

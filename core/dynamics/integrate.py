@@ -103,6 +103,8 @@ def accelerate(alg: Algebra, b: Bodies, gravity: Array, dt: float,
     does the same per body; the caller decides (``kernels.use_compiled(settings)``).
     """
     if compiled:
+        if b.count == 0:
+            return
         k = _kernels.load("integrate", alg.n)
         k.accelerate(b.kind, b.awake, b.inv_mass, b.force, b.linear_damping, b.velocity, b.inv_inertia,
                      b.rotor, b.principal_rotor, b.rotation, b.torque, b.angular_damping, b.angular_velocity,
@@ -147,6 +149,8 @@ def advance_poses(alg: Algebra, b: Bodies, dt: float, compiled: bool = False) ->
 
     ``compiled``: run the compiled kernel (as in :func:`accelerate`)."""
     if compiled:
+        if b.count == 0:
+            return
         k = _kernels.load("integrate", alg.n)
         k.advance_poses(b.kind, b.awake, b.velocity, b.angular_velocity, b.local_centroid, b.position,
                         b.rotor, b.rotation, float(dt))

@@ -54,30 +54,45 @@ def _stage_sleep(sim: Simulation, dt: float) -> None:
     sleep.settle_islands(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
 
 
-def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
-    """Diff this step's touching handle pairs (T, 2) against the last step's."""
+def _touch_keys(sim: Simulation, pairs: np.ndarray, sensor: bool) -> np.ndarray:
+    """Sorted int64 keys of touching handle pairs (T, 2): lo << 32 | hi << 1 | sensor."""
+    if not len(pairs):
+        return np.zeros(0, np.int64)
     h = sim.bodies.handle
-    now: set[tuple[int, int, bool]] = set()
-    for pairs, is_sensor in ((touching, False), (sensor_touching, True)):
-        if len(pairs):
-            ha, hb = h[pairs[:, 0]], h[pairs[:, 1]]
-            lo, hi = np.minimum(ha, hb), np.maximum(ha, hb)
-            now.update(zip(lo.tolist(), hi.tolist(), [is_sensor] * len(lo), strict=True))
-    before: set[tuple[int, int, bool]] = sim.caches.get("touching", set())
-    for a, b, s in sorted(now - before):
-        sim.events.append(ContactEvent("begin", a, b, s))
-    for a, b, s in sorted(before - now):
-        sim.events.append(ContactEvent("end", a, b, s))
+    ha, hb = h[pairs[:, 0]].astype(np.int64), h[pairs[:, 1]].astype(np.int64)
+    lo, hi = np.minimum(ha, hb), np.maximum(ha, hb)
+    return (lo << np.int64(32)) | (hi << np.int64(1)) | np.int64(sensor)
+
+
+def _emit(sim: Simulation, kind: str, keys: np.ndarray) -> None:
+    """Append one event per key (keys sorted: events come in handle order)."""
+    if not len(keys):
+        return
+    lo = (keys >> np.int64(32)).tolist()
+    hi = ((keys & np.int64(0xFFFFFFFF)) >> np.int64(1)).tolist()
+    sen = (keys & np.int64(1)).astype(bool).tolist()
+    sim.events.extend(ContactEvent(kind, a, b, s) for a, b, s in zip(lo, hi, sen, strict=True))
+
+
+def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
+    """Diff this step's touching handle pairs (T, 2) against the last step's, as sorted int64 keys
+    (``np.setdiff1d`` on sorted unique arrays; no Python set of pairs)."""
+    now = np.unique(np.concatenate([_touch_keys(sim, touching, False),
+                                    _touch_keys(sim, sensor_touching, True)]))
+    before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
+    _emit(sim, "begin", np.setdiff1d(now, before, assume_unique=True))
+    _emit(sim, "end", np.setdiff1d(before, now, assume_unique=True))
     sim.caches["touching"] = now
 
 
 def removal_events(sim: Simulation, handle: int) -> None:
     """End events for every touching pair of a body that is being removed."""
-    before: set[tuple[int, int, bool]] = sim.caches.get("touching", set())
-    gone = {t for t in before if handle in (t[0], t[1])}
-    for a, b, s in sorted(gone):
-        sim.events.append(ContactEvent("end", a, b, s))
-    sim.caches["touching"] = before - gone
+    before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
+    lo = before >> np.int64(32)
+    hi = (before & np.int64(0xFFFFFFFF)) >> np.int64(1)
+    gone = (lo == handle) | (hi == handle)
+    _emit(sim, "end", before[gone])
+    sim.caches["touching"] = before[~gone]
 
 
 def collision_stages() -> list[tuple[str, Stage]]:
