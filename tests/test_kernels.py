@@ -57,3 +57,22 @@ def test_compile_command_refuses_bad_dimension() -> None:
     out = subprocess.run([sys.executable, "-m", "ndrigid.compile", "--dim", "1"], capture_output=True,
                          text=True)
     assert out.returncode != 0 and "--dim" in out.stderr
+
+
+def test_compile_command_fills_the_cache_in_parallel(tmp_path) -> None:
+    """``--jobs 2`` compiles each dimension in a worker and leaves every family warm."""
+    if not kernels.available():
+        pytest.skip("numba is not available")
+    env = {**os.environ, "NDRIGID_CACHE_DIR": str(tmp_path)}
+    out = subprocess.run([sys.executable, "-m", "ndrigid.compile", "--dim", "2", "3", "--families", "solver",
+                          "--jobs", "2"], capture_output=True, text=True, env=env, timeout=600)
+    assert out.returncode == 0, out.stderr
+    assert "2-D:" in out.stdout and "3-D:" in out.stdout and "FAILED" not in out.stdout
+    folder = next(tmp_path.iterdir())
+    assert (folder / "solver_n2.ok").exists() and (folder / "solver_n3.ok").exists()
+
+
+def test_compile_command_refuses_bad_jobs() -> None:
+    out = subprocess.run([sys.executable, "-m", "ndrigid.compile", "--jobs", "0"], capture_output=True,
+                         text=True)
+    assert out.returncode != 0 and "--jobs" in out.stderr
