@@ -106,14 +106,15 @@ def _solve(A, b, k):
 
 
 @njit(cache=True)
-def _householder_null(E, out):
-    """Unit vector orthogonal to the N-1 rows of E (N-1, N): Q e_N of a Householder QR of E^T."""
-    M = np.empty((N, N - 1))
+def _householder_null(E, out, M, V):
+    """Unit vector orthogonal to the N-1 rows of E (N-1, N): Q e_N of a Householder QR of E^T
+    (scratch M (N, N-1), V (N-1, N))."""
     for i in range(N):
         for j in range(N - 1):
             M[i, j] = E[j, i]
-    V = np.zeros((N - 1, N))
     for c in range(N - 1):
+        for i in range(N):
+            V[c, i] = 0.0
         nx = 0.0
         for i in range(c, N):
             nx += M[i, c] * M[i, c]
@@ -229,9 +230,9 @@ def _support(Va, Vb, d):
 
 
 @njit(cache=True)
-def _closest(Y, m, v, lam):
-    """Closest point v (N,) to the origin of conv(Y[:m]), weights in lam[:m] (gjk._closest_on_simplex)."""
-    G = np.empty((MAXS, MAXS))
+def _closest(Y, m, v, lam, G, A, b, idx, bl, p):
+    """Closest point v (N,) to the origin of conv(Y[:m]), weights in lam[:m] (gjk._closest_on_simplex);
+    scratch G (MAXS, MAXS), A (MAXS+1, MAXS+1), b (MAXS+1,), idx (MAXS,) int, bl (MAXS,), p (N,)."""
     tr = 0.0
     for i in range(m):
         for j in range(m):
@@ -241,13 +242,8 @@ def _closest(Y, m, v, lam):
             G[i, j] = s
         tr += G[i, i]
     ridge = 1e-13 * (tr / m + 1e-300)
-    A = np.empty((MAXS + 1, MAXS + 1))
-    b = np.empty(MAXS + 1)
-    idx = np.empty(MAXS, np.int64)
-    bl = np.zeros(MAXS)
     best = np.inf
     first = True
-    p = np.empty(N)
     for s in range(SUB_OFF[m], SUB_OFF[m + 1]):
         mask = SUB_MASK[s]
         k = 0
@@ -337,6 +333,12 @@ def _gjk(Va, Vb, W, sia, sib, lam, v):
     m = 1
     used = np.empty(MAXS, np.bool_)
     w = np.empty(N)
+    G = np.empty((MAXS, MAXS))
+    A = np.empty((MAXS + 1, MAXS + 1))
+    b = np.empty(MAXS + 1)
+    idx = np.empty(MAXS, np.int64)
+    bl = np.zeros(MAXS)
+    p = np.empty(N)
     tiny = 1e-12 * scale
     for _ in range(GJK_ITER):
         vv = 0.0
@@ -362,7 +364,7 @@ def _gjk(Va, Vb, W, sia, sib, lam, v):
         sia[m] = ia
         sib[m] = ib
         m += 1
-        _closest(W, m, v, lam)
+        _closest(W, m, v, lam, G, A, b, idx, bl, p)
         nu = 0
         for j in range(m):
             used[j] = lam[j] > 0.0
@@ -412,13 +414,13 @@ def _gjk(Va, Vb, W, sia, sib, lam, v):
 
 
 @njit(cache=True)
-def _facet_plane(W, fac, inner, nrm):
-    """Unit normal (into nrm) away from ``inner`` and offset of the simplex facet W[fac] (N points)."""
-    E = np.empty((N - 1, N))
+def _facet_plane(W, fac, inner, nrm, E, M, V):
+    """Unit normal (into nrm) away from ``inner`` and offset of the simplex facet W[fac] (N points);
+    scratch E (N-1, N) and that of _householder_null."""
     for j in range(N - 1):
         for t in range(N):
             E[j, t] = W[fac[j + 1], t] - W[fac[0], t]
-    _householder_null(E, nrm)
+    _householder_null(E, nrm, M, V)
     s = 0.0
     for t in range(N):
         s += (W[fac[0], t] - inner[t]) * nrm[t]
@@ -432,20 +434,18 @@ def _facet_plane(W, fac, inner, nrm):
 
 
 @njit(cache=True)
-def _push(W, eia, eib, nW, Q, w, a, b, tol):
-    """Add support point w (indices a, b) when it adds a direction to the span (gjk.penetration.push)."""
+def _push(W, eia, eib, nW, Q, w, a, b, tol, x, c, r):
+    """Add support point w (indices a, b) when it adds a direction to the span (gjk.penetration.push);
+    scratch x, c, r (N,)."""
     if nW > 0:
         nq = nW - 1
-        x = np.empty(N)
         for t in range(N):
             x[t] = w[t] - W[0, t]
-        c = np.empty(N)
         for k in range(nq):
             s = 0.0
             for t in range(N):
                 s += Q[k, t] * x[t]
             c[k] = s
-        r = np.empty(N)
         nr = 0.0
         for t in range(N):
             s = 0.0
@@ -476,13 +476,16 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
     eib = np.empty(VCAP, np.int64)
     Q = np.zeros((N, N))
     w = np.empty(N)
+    px = np.empty(N)
+    pc = np.empty(N)
+    pr = np.empty(N)
     nW = 0
     for j in range(m):
         a = sia[j]
         b = sib[j]
         for t in range(N):
             w[t] = Va[a, t] - Vb[b, t]
-        if _push(W, eia, eib, nW, Q, w, a, b, tol):
+        if _push(W, eia, eib, nW, Q, w, a, b, tol, px, pc, pr):
             nW += 1
     d = np.empty(N)
     while nW < N + 1:
@@ -505,7 +508,7 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
                 a, b = _support(Va, Vb, d)
                 for t in range(N):
                     w[t] = Va[a, t] - Vb[b, t]
-                if _push(W, eia, eib, nW, Q, w, a, b, tol):
+                if _push(W, eia, eib, nW, Q, w, a, b, tol, px, pc, pr):
                     nW += 1
                     done = True
                     break
@@ -519,6 +522,9 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
             inner[t] += W[j, t]
     for t in range(N):
         inner[t] /= N + 1
+    E = np.empty((N - 1, N))
+    M = np.empty((N, N - 1))
+    V = np.empty((N - 1, N))
     fcap = 64
     facets = np.empty((fcap, N), np.int64)
     normals = np.empty((fcap, N))
@@ -530,8 +536,10 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
             if j != i:
                 facets[i, c] = j
                 c += 1
-        dists[i] = _facet_plane(W, facets[i], inner, normals[i])
+        dists[i] = _facet_plane(W, facets[i], inner, normals[i], E, M, V)
     visible = np.empty(fcap, np.bool_)
+    keys = np.empty(fcap * N, np.int64)
+    hor = np.empty(fcap * N, np.int64)
     rid = np.empty(N - 1, np.int64)
     mask = (np.int64(1) << RIDGE_BITS) - 1
     for _ in range(EPA_ITER):
@@ -569,7 +577,9 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
                 nvis += 1
         if nvis == nf:
             return False, 0.0
-        keys = np.empty(nvis * N, np.int64)
+        if nvis * N > keys.shape[0]:
+            keys = np.empty(nvis * N, np.int64)
+            hor = np.empty(nvis * N, np.int64)
         nk = 0
         for i in range(nf):
             if not visible[i]:
@@ -593,9 +603,8 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
                     key = (key << RIDGE_BITS) | rid[x]
                 keys[nk] = key
                 nk += 1
-        keys.sort()
+        keys[:nk].sort()
         # horizon: keys that occur once, ascending (np.unique's order)
-        hor = np.empty(nk, np.int64)
         nh = 0
         x = 0
         while x < nk:
@@ -634,7 +643,7 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
                 facets[c, N - 2 - x] = key & mask
                 key = key >> RIDGE_BITS
             facets[c, N - 1] = k
-            dists[c] = _facet_plane(W, facets[c], inner, normals[c])
+            dists[c] = _facet_plane(W, facets[c], inner, normals[c], E, M, V)
             c += 1
         nf = c
     f = 0
