@@ -13,7 +13,9 @@ Pipeline of :func:`find_contacts`:
 3. One kernel per kind pair, vectorised over all its pairs: ball/ball, ball/box, ball/half-space,
    box/half-space and polytope/half-space (vertices against the plane, grouped per shape) are here;
    box/box goes to :func:`sat.box_box` in one batch; ball/polytope, box/polytope and
-   polytope/polytope go pair by pair to :mod:`gjk` (their per-pair cost is dominated by GJK/EPA).
+   polytope/polytope go, with the compiled kernels, in one call to the ``convex`` kernel family
+   (``kernels/convex_tpl.py``: GJK, EPA and the clipped manifold as loops over all pairs, shapes
+   packed once per shape into flat tables), else pair by pair to :mod:`gjk` (the numpy path).
 4. Speculative margin of a pair: ``speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a +
    |w_b| e_b)`` with ``e`` a body's reach from its centre of mass (a bound on the closing speed of
    any two surface points); points whose gap is below it are kept, with negative depth.
