@@ -625,6 +625,8 @@ def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, ma
     A = np.where(swap, ib, ia)
     B = np.where(swap, ia, ib)
     code = np.minimum(ka, kb) * _NKINDS + np.maximum(ka, kb)
+    # ball, box or polytope against a polytope: one group (one call of the convex kernel)
+    code = np.where(np.maximum(ka, kb) == SHAPE_POLYTOPE, SHAPE_POLYTOPE * (_NKINDS + 1), code)
     parts, offsets = [], []
     for cd in np.unique(code):  # loop over the few kind pairs present
         sel = np.flatnonzero(code == cd)
