@@ -519,7 +519,8 @@ def _packed_shape(shape: Any) -> tuple[Any, ...]:
     """One polytope's data in the flat layout of the compiled convex kernel, built once per shape:
     vertices (V, n), facet normals (F, n) and offsets (F,), edges per facet (F,) with the edges
     (E, 2) (local vertex indices), side planes per facet (F,) with their normals (S, n) and offsets
-    (S,) (:func:`gjk._side_planes`)."""
+    (S,) (:func:`gjk._side_planes`), neighbours per vertex (V,) with the neighbour lists (2 E',)
+    (the polytope's edges: the union of the facet edges)."""
     got = _PACKED.get(shape)
     if got is None:
         from .gjk import _side_planes
@@ -527,6 +528,11 @@ def _packed_shape(shape: Any) -> tuple[Any, ...]:
         n = shape.dim
         sides = _side_planes(shape)
         fe = [np.asarray(e, dtype=np.int64).reshape(-1, 2) for e in shape.facet_edges]
+        nv = len(shape.vertices)
+        allfe = np.concatenate(fe) if fe else np.zeros((0, 2), np.int64)
+        und = np.unique(np.sort(allfe, axis=1), axis=0)
+        both = np.concatenate([und, und[:, ::-1]])
+        both = both[np.lexsort((both[:, 1], both[:, 0]))]  # by vertex, neighbours ascending
         got = (np.ascontiguousarray(shape.vertices, dtype=np.float64),
                np.ascontiguousarray(shape.facet_normals, dtype=np.float64),
                np.ascontiguousarray(shape.facet_offsets, dtype=np.float64),
@@ -534,7 +540,8 @@ def _packed_shape(shape: Any) -> tuple[Any, ...]:
                np.concatenate(fe) if fe else np.zeros((0, 2), np.int64),
                np.array([len(o) for _, o in sides], dtype=np.int64),
                np.concatenate([S for S, _ in sides]).reshape(-1, n) if sides else np.zeros((0, n)),
-               np.concatenate([o for _, o in sides]) if sides else np.zeros(0))
+               np.concatenate([o for _, o in sides]) if sides else np.zeros(0),
+               np.bincount(both[:, 0], minlength=nv).astype(np.int64), np.ascontiguousarray(both[:, 1]))
         _PACKED[shape] = got
     return got
 
@@ -545,8 +552,8 @@ def _offsets(counts: list[int] | IntArray) -> IntArray:
 
 def _convex_table(shapes: list[Any], cache: dict[str, Any]) -> tuple[IntArray, ...]:
     """The packed table of the compiled convex kernel for these shapes (table slot = list index):
-    verts, v_off, fnorm, foff, f_off, fe, fe_off, spn, spd, sp_off. Cached by the shapes' identities
-    (the entry holds the shapes, so the identities stay valid); a loop over distinct shapes."""
+    verts, v_off, fnorm, foff, f_off, fe, fe_off, spn, spd, sp_off, adj, a_off. Cached by the shapes'
+    identities (the entry holds the shapes, so the identities stay valid); a loop over distinct shapes."""
     tables = cache.setdefault("convex_tables", {})
     ident = tuple(id(s) for s in shapes)
     hit = tables.get(ident)
@@ -558,7 +565,8 @@ def _convex_table(shapes: list[Any], cache: dict[str, Any]) -> tuple[IntArray, .
              _offsets([len(p[1]) for p in parts]),
              np.ascontiguousarray(np.concatenate([p[4] for p in parts])),
              _offsets(np.concatenate([p[3] for p in parts])), np.concatenate([p[6] for p in parts]),
-             np.concatenate([p[7] for p in parts]), _offsets(np.concatenate([p[5] for p in parts])))
+             np.concatenate([p[7] for p in parts]), _offsets(np.concatenate([p[5] for p in parts])),
+             np.concatenate([p[9] for p in parts]), _offsets(np.concatenate([p[8] for p in parts])))
     if len(tables) >= _TABLES_MAX:
         tables.clear()
     tables[ident] = (tuple(shapes), table)

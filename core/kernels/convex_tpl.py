@@ -22,9 +22,11 @@ them for every pair of a call in one compiled loop (no Python loop over pairs):
   and the feature head bits are those of ``gjk.py``.
 
 Shapes come packed in flat tables with offsets (``narrowphase._convex_table``): vertices, facet
-normals and offsets, facet edges and side planes per facet. Both paths compute the same things in
-the same order; they differ in the last bits where the summation order differs (BLAS against serial
-loops), which can flip a decision only at an exact tie (see tests/test_kernels_convex.py).
+normals and offsets, facet edges and side planes per facet, and the vertex graph (neighbours per
+vertex), on which the facet-normal candidates find the other body's lowest vertex by descent.
+Both paths compute the same things in the same order; they differ in the last bits where the
+summation order differs (BLAS against serial loops), which can flip a decision only at an exact
+tie (see tests/test_kernels_convex.py).
 """
 
 import itertools
@@ -1002,12 +1004,21 @@ def _world(verts, v0, v1, p, R):
 
 
 @njit(cache=True)
-def _facet_gaps(Vo, p, R, f0, f1, fnorm, foff, Vother):
+def _facet_gaps(Vo, p, R, f0, f1, fnorm, foff, Vother, adj, a_off, ob):
     """Per facet f of a shape at pose (p, R): offset + n_w . p - min over the other body's vertices of
-    n_w . x (the SAT face-axis separation); returns (argmin, min)."""
+    n_w . x (the SAT face-axis separation); returns (argmin, min).
+
+    The minimum over the other body's vertices is found by descent on its vertex graph (``adj``,
+    rows ``a_off[ob + j]`` for its vertex j; warm-started at the last facet's minimiser): on a convex
+    polytope a vertex with no lower neighbour attains the minimum over all vertices, so the value is
+    the full scan's (ties change the vertex, not the value), in a few neighbour visits instead of a
+    pass over all vertices (a 600-cell has 120 vertices, 12 neighbours each).
+    """
     best = np.inf
     fb = 0
     nw = np.empty(N)
+    graph = a_off[ob + Vother.shape[0]] > a_off[ob]
+    j = 0
     for f in range(f1 - f0):
         g = f0 + f
         for t in range(N):
@@ -1018,13 +1029,30 @@ def _facet_gaps(Vo, p, R, f0, f1, fnorm, foff, Vother):
         o = foff[g]
         for t in range(N):
             o += nw[t] * p[t]
-        lo = np.inf
-        for i in range(Vother.shape[0]):
-            s = 0.0
+        if graph:
+            lo = 0.0
             for t in range(N):
-                s += nw[t] * Vother[i, t]
-            if s < lo:
-                lo = s
+                lo += nw[t] * Vother[j, t]
+            moved = True
+            while moved:
+                moved = False
+                for e in range(a_off[ob + j], a_off[ob + j + 1]):
+                    k = adj[e]
+                    s = 0.0
+                    for t in range(N):
+                        s += nw[t] * Vother[k, t]
+                    if s < lo:
+                        lo = s
+                        j = k
+                        moved = True
+        else:
+            lo = np.inf
+            for i in range(Vother.shape[0]):
+                s = 0.0
+                for t in range(N):
+                    s += nw[t] * Vother[i, t]
+                if s < lo:
+                    lo = s
         val = o - lo
         if f == 0 or val < best:
             best = val
@@ -1051,7 +1079,7 @@ def _incident(R, f0, f1, fnorm, nr):
 
 @njit(cache=True)
 def convex_batch(ball, sa, sb, pos_a, rot_a, rad_a, pos_b, rot_b, margin, verts, v_off, fnorm, foff, f_off,
-                 fe, fe_off, spn, spd, sp_off):
+                 fe, fe_off, spn, spd, sp_off, adj, a_off):
     """Contacts of Q pairs: A a ball (``ball``) or a polytope of table slot sa, B a polytope of slot
     sb. Returns ManifoldPoints columns (pair, normal, point, depth, feature), pairs in order."""
     Q = sb.shape[0]
@@ -1165,8 +1193,8 @@ def convex_batch(ball, sa, sb, pos_a, rot_a, rad_a, pos_b, rot_b, margin, verts,
                 pt_ia = eia
                 pt_ib = eib
                 npt = N
-        fa, da = _facet_gaps(Va, pa, Ra, fa0, fa1, fnorm, foff, Vb)
-        fb, db = _facet_gaps(Vb, pb, Rb, fb0, fb1, fnorm, foff, Va)
+        fa, da = _facet_gaps(Va, pa, Ra, fa0, fa1, fnorm, foff, Vb, adj, a_off, v_off[s_b])
+        fb, db = _facet_gaps(Vb, pb, Rb, fb0, fb1, fnorm, foff, Va, adj, a_off, v_off[s_a])
         use_b = db < da - (AOB_REL * abs(da) + AOB_ABS)
         dface = db if use_b else da
         done = False
@@ -1249,9 +1277,12 @@ def cube_table():
                         k += 1
             sp_cnt.append(k)
     fe_a = np.array(fe, dtype=np.int64).reshape(-1, 2)
+    nbr = [[k for k in range(len(V)) if np.sum(V[j] != V[k]) == 1] for j in range(len(V))]
     return (V, np.array([0, len(V)], np.int64), np.array(fn), np.array(fo), np.array([0, 2 * N], np.int64),
             fe_a, np.concatenate([[0], np.cumsum(fe_cnt)]).astype(np.int64), np.array(spn), np.array(spd),
-            np.concatenate([[0], np.cumsum(sp_cnt)]).astype(np.int64))
+            np.concatenate([[0], np.cumsum(sp_cnt)]).astype(np.int64),
+            np.array([k for row in nbr for k in row], dtype=np.int64),
+            np.concatenate([[0], np.cumsum([len(r) for r in nbr])]).astype(np.int64))
 
 
 def warm_up():
