@@ -37,8 +37,8 @@ def _shapes(n: int, rng: np.random.Generator) -> list[ConvexPolytope]:
     out: list[ConvexPolytope] = [polytopes.hypercube(n, edge=0.8), polytopes.regular_simplex(n, edge=1.2),
                                  polytopes.orthoplex(n, circumradius=0.7), Box(rng.uniform(0.2, 0.6, n)),
                                  ConvexPolytope(rng.normal(size=(n + 6, n)) * 0.5)]
-    if n == 4:
-        out.append(polytopes.cell_24(circumradius=0.7))
+    if n == 4:  # the 600-cell exercises the pruned facet-normal candidates (600 facets, 120 vertices)
+        out += [polytopes.cell_24(circumradius=0.7), polytopes.cell_600(circumradius=0.6)]
     return out
 
 

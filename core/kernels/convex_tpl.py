@@ -1004,57 +1004,95 @@ def _world(verts, v0, v1, p, R):
 
 
 @njit(cache=True)
-def _facet_gaps(Vo, p, R, f0, f1, fnorm, foff, Vother, adj, a_off, ob):
-    """Per facet f of a shape at pose (p, R): offset + n_w . p - min over the other body's vertices of
-    n_w . x (the SAT face-axis separation); returns (argmin, min).
-
-    The minimum over the other body's vertices is found by descent on its vertex graph (``adj``,
-    rows ``a_off[ob + j]`` for its vertex j; warm-started at the last facet's minimiser): on a convex
-    polytope a vertex with no lower neighbour attains the minimum over all vertices, so the value is
-    the full scan's (ties change the vertex, not the value), in a few neighbour visits instead of a
-    pass over all vertices (a 600-cell has 120 vertices, 12 neighbours each).
-    """
-    best = np.inf
-    fb = 0
-    nw = np.empty(N)
-    graph = a_off[ob + Vother.shape[0]] > a_off[ob]
-    j = 0
-    for f in range(f1 - f0):
-        g = f0 + f
+def _lowest(Vother, nw, adj, a_off, ob, graph, start):
+    """(vertex, value) of the minimum of nw . x over the other body's vertices: descent on its vertex
+    graph from ``start`` when it has one (a vertex with no lower neighbour of a convex polytope
+    attains the minimum over all vertices), else a full scan."""
+    if graph:
+        j = start
+        lo = 0.0
         for t in range(N):
-            s = 0.0
-            for j in range(N):
-                s += R[t, j] * fnorm[g, j]
-            nw[t] = s
-        o = foff[g]
-        for t in range(N):
-            o += nw[t] * p[t]
-        if graph:
-            lo = 0.0
-            for t in range(N):
-                lo += nw[t] * Vother[j, t]
-            moved = True
-            while moved:
-                moved = False
-                for e in range(a_off[ob + j], a_off[ob + j + 1]):
-                    k = adj[e]
-                    s = 0.0
-                    for t in range(N):
-                        s += nw[t] * Vother[k, t]
-                    if s < lo:
-                        lo = s
-                        j = k
-                        moved = True
-        else:
-            lo = np.inf
-            for i in range(Vother.shape[0]):
+            lo += nw[t] * Vother[j, t]
+        moved = True
+        while moved:
+            moved = False
+            for e in range(a_off[ob + j], a_off[ob + j + 1]):
+                k = adj[e]
                 s = 0.0
                 for t in range(N):
-                    s += nw[t] * Vother[i, t]
+                    s += nw[t] * Vother[k, t]
                 if s < lo:
                     lo = s
-        val = o - lo
-        if f == 0 or val < best:
+                    j = k
+                    moved = True
+        return j, lo
+    lo = np.inf
+    jm = 0
+    for i in range(Vother.shape[0]):
+        s = 0.0
+        for t in range(N):
+            s += nw[t] * Vother[i, t]
+        if s < lo:
+            lo = s
+            jm = i
+    return jm, lo
+
+
+@njit(cache=True)
+def _facet_gaps(Vo, p, R, f0, f1, fnorm, foff, Vother, adj, a_off, ob):
+    """Per facet f of a shape at pose (p, R): offset + n_w . p - min over the other body's vertices of
+    n_w . x (the SAT face-axis separation); returns (argmin, min), the first facet on ties.
+
+    Two savings that keep the values of a full evaluation: the minimum over the other body's
+    vertices comes from descent on its vertex graph (``adj``, rows ``a_off[ob + j]`` for its vertex
+    j; :func:`_lowest`), and a facet is skipped when a lower bound of its gap exceeds the best gap
+    found: the minimum over the vertices is at most their mean c, so the gap is at least
+    offset + n_w . (p - c). The facet of least bound is evaluated first, so most facets turned
+    away from the other body are never evaluated (a 600-cell has 600 facets, 120 vertices).
+    """
+    F = f1 - f0
+    nws = np.empty((F, N))
+    off = np.empty(F)
+    bound = np.empty(F)
+    c = np.zeros(N)
+    nv = Vother.shape[0]
+    scale = 0.0
+    for i in range(nv):
+        for t in range(N):
+            c[t] += Vother[i, t]
+            if abs(Vother[i, t]) > scale:
+                scale = abs(Vother[i, t])
+    for t in range(N):
+        c[t] /= nv
+        if abs(p[t]) > scale:
+            scale = abs(p[t])
+    fs = 0
+    for f in range(F):
+        g = f0 + f
+        o = foff[g]
+        bc = 0.0
+        for t in range(N):
+            s = 0.0
+            for k in range(N):
+                s += R[t, k] * fnorm[g, k]
+            nws[f, t] = s
+            o += s * p[t]
+            bc += s * c[t]
+        off[f] = o
+        bound[f] = o - bc
+        if bound[f] < bound[fs]:
+            fs = f
+    graph = a_off[ob + nv] > a_off[ob]
+    j, lo = _lowest(Vother, nws[fs], adj, a_off, ob, graph, 0)
+    best = off[fs] - lo
+    fb = fs
+    slack = 1e-9 * (scale + 1.0)  # far above the rounding of the bound, far below any real gap
+    for f in range(F):
+        if bound[f] > best + slack:
+            continue
+        j, lo = _lowest(Vother, nws[f], adj, a_off, ob, graph, j)
+        val = off[f] - lo
+        if val < best or (val == best and f < fb):
             best = val
             fb = f
     return fb, best
