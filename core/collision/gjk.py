@@ -40,7 +40,9 @@ normals alone (the cheap half of SAT) are still used, for the coherence preferen
 
 A loop over polytope pairs is the caller's; inside, support mappings are vectorised over vertices,
 subset solves over subsets and EPA updates over facets. The GJK/EPA iteration loops are inherently
-sequential (each step needs the previous support point).
+sequential (each step needs the previous support point). This is the numpy path; with the compiled
+kernels the narrowphase runs the same steps for all pairs of a call in ``kernels/convex_tpl.py``
+(about 40 us for a touching pair of 24-cells with its manifold, against about 4 ms here).
 """
 
 from __future__ import annotations

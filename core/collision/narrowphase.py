@@ -13,7 +13,9 @@ Pipeline of :func:`find_contacts`:
 3. One kernel per kind pair, vectorised over all its pairs: ball/ball, ball/box, ball/half-space,
    box/half-space and polytope/half-space (vertices against the plane, grouped per shape) are here;
    box/box goes to :func:`sat.box_box` in one batch; ball/polytope, box/polytope and
-   polytope/polytope go pair by pair to :mod:`gjk` (their per-pair cost is dominated by GJK/EPA).
+   polytope/polytope go, with the compiled kernels, in one call to the ``convex`` kernel family
+   (``kernels/convex_tpl.py``: GJK, EPA and the clipped manifold as loops over all pairs, shapes
+   packed once per shape into flat tables), else pair by pair to :mod:`gjk` (the numpy path).
 4. Speculative margin of a pair: ``speculative_margin + dt (|v_a| + |v_b| + |w_a| e_a +
    |w_b| e_b)`` with ``e`` a body's reach from its centre of mass (a bound on the closing speed of
    any two surface points); points whose gap is below it are kept, with negative depth.
@@ -106,6 +108,7 @@ class ShapeStore:
 
     def __init__(self, shapes: list[Any], cache: dict[str, Any]) -> None:
         self.shapes = shapes
+        self.cache = cache
         self.extras: list[Any] = cache.setdefault("extras", [])
         self._extra_ids: dict[int, int] = cache.setdefault("extra_ids", {})
         self.compound: dict[int, tuple[Any, ...]] = cache.setdefault("compound", {})
@@ -511,10 +514,97 @@ def _box_box(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array
     return fn(alg, c.pos[A], c.rot[A], c.half[A], c.pos[B], c.rot[B], c.half[B], margin)
 
 
+_PACKED: weakref.WeakKeyDictionary[Any, tuple[Any, ...]] = weakref.WeakKeyDictionary()
+_TABLES_MAX = 16
+
+
+def _packed_shape(shape: Any) -> tuple[Any, ...]:
+    """One polytope's data in the flat layout of the compiled convex kernel, built once per shape:
+    vertices (V, n), facet normals (F, n) and offsets (F,), edges per facet (F,) with the edges
+    (E, 2) (local vertex indices), side planes per facet (F,) with their normals (S, n) and offsets
+    (S,) (:func:`gjk._side_planes`), neighbours per vertex (V,) with the neighbour lists (2 E',)
+    (the polytope's edges: the union of the facet edges)."""
+    got = _PACKED.get(shape)
+    if got is None:
+        from .gjk import _side_planes
+
+        n = shape.dim
+        sides = _side_planes(shape)
+        fe = [np.asarray(e, dtype=np.int64).reshape(-1, 2) for e in shape.facet_edges]
+        nv = len(shape.vertices)
+        allfe = np.concatenate(fe) if fe else np.zeros((0, 2), np.int64)
+        und = np.unique(np.sort(allfe, axis=1), axis=0)
+        both = np.concatenate([und, und[:, ::-1]])
+        both = both[np.lexsort((both[:, 1], both[:, 0]))]  # by vertex, neighbours ascending
+        got = (np.ascontiguousarray(shape.vertices, dtype=np.float64),
+               np.ascontiguousarray(shape.facet_normals, dtype=np.float64),
+               np.ascontiguousarray(shape.facet_offsets, dtype=np.float64),
+               np.array([len(e) for e in fe], dtype=np.int64),
+               np.concatenate(fe) if fe else np.zeros((0, 2), np.int64),
+               np.array([len(o) for _, o in sides], dtype=np.int64),
+               np.concatenate([S for S, _ in sides]).reshape(-1, n) if sides else np.zeros((0, n)),
+               np.concatenate([o for _, o in sides]) if sides else np.zeros(0),
+               np.bincount(both[:, 0], minlength=nv).astype(np.int64), np.ascontiguousarray(both[:, 1]))
+        _PACKED[shape] = got
+    return got
+
+
+def _offsets(counts: list[int] | IntArray) -> IntArray:
+    return np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+
+
+def _convex_table(shapes: list[Any], cache: dict[str, Any]) -> tuple[IntArray, ...]:
+    """The packed table of the compiled convex kernel for these shapes (table slot = list index):
+    verts, v_off, fnorm, foff, f_off, fe, fe_off, spn, spd, sp_off, adj, a_off. Cached by the shapes'
+    identities (the entry holds the shapes, so the identities stay valid); a loop over distinct shapes."""
+    tables = cache.setdefault("convex_tables", {})
+    ident = tuple(id(s) for s in shapes)
+    hit = tables.get(ident)
+    if hit is not None:
+        return hit[1]
+    parts = [_packed_shape(s) for s in shapes]
+    table = (np.concatenate([p[0] for p in parts]), _offsets([len(p[0]) for p in parts]),
+             np.concatenate([p[1] for p in parts]), np.concatenate([p[2] for p in parts]),
+             _offsets([len(p[1]) for p in parts]),
+             np.ascontiguousarray(np.concatenate([p[4] for p in parts])),
+             _offsets(np.concatenate([p[3] for p in parts])), np.concatenate([p[6] for p in parts]),
+             np.concatenate([p[7] for p in parts]), _offsets(np.concatenate([p[5] for p in parts])),
+             np.concatenate([p[9] for p in parts]), _offsets(np.concatenate([p[8] for p in parts])))
+    if len(tables) >= _TABLES_MAX:
+        tables.clear()
+    tables[ident] = (tuple(shapes), table)
+    return table
+
+
+def _convex_pairs_compiled(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array,
+                           store: ShapeStore) -> ManifoldPoints:
+    """:func:`_convex_pairs` through the compiled ``convex`` kernel family: one call for all pairs."""
+    from .. import kernels
+
+    mod = kernels.load("convex", alg.n)
+    ball = c.kind[A] == SHAPE_BALL
+    kb = c.key[B]
+    ka = c.key[A]
+    uk = np.unique(np.concatenate([ka[~ball], kb]))
+    table = _convex_table([store.get(int(k)) for k in uk], store.cache)  # a loop over distinct shapes
+    sa = np.where(ball, 0, np.searchsorted(uk, ka)).astype(np.int64)
+    sb = np.searchsorted(uk, kb).astype(np.int64)
+    pair, normal, point, depth, feature = mod.convex_batch(
+        np.ascontiguousarray(ball), sa, sb, np.ascontiguousarray(c.pos[A]), np.ascontiguousarray(c.rot[A]),
+        np.ascontiguousarray(c.radius[A], dtype=np.float64), np.ascontiguousarray(c.pos[B]),
+        np.ascontiguousarray(c.rot[B]), np.ascontiguousarray(margin, dtype=np.float64), *table)
+    return ManifoldPoints(pair, normal, point, depth, feature)
+
+
 def _convex_pairs(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: Array,
-                  store: ShapeStore) -> ManifoldPoints:
-    """Ball, box or polytope (A) against a box or polytope (B), pair by pair through gjk."""
+                  store: ShapeStore, settings: Any = None) -> ManifoldPoints:
+    """Ball, box or polytope (A) against a box or polytope (B): the compiled kernel when
+    ``kernels.use_compiled(settings)``, else pair by pair through gjk (the numpy path)."""
+    from .. import kernels
     from .gjk import ball_convex, convex_pair
+
+    if A.size and kernels.use_compiled(settings):
+        return _convex_pairs_compiled(alg, c, A, B, margin, store)
 
     parts, offsets = [], []
     for q in range(A.size):  # a loop over these pairs is allowed: GJK/EPA dominates their cost
@@ -531,11 +621,11 @@ def _convex_pairs(alg: Algebra, c: Colliders, A: IntArray, B: IntArray, margin: 
 
 
 def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, margin: Array,
-                      store: ShapeStore, compiled: bool = False) -> ManifoldPoints:
+                      store: ShapeStore, settings: Any = None) -> ManifoldPoints:
     """Contact points of collider pairs (ia, ib) (Q,) with margins (Q,); pair = index into ia.
 
-    Normals point from ``ia`` to ``ib`` whatever the kind order used inside. ``compiled``: use the
-    compiled kernels where a pair kind has one (``ndrigid.core.kernels``; same rows, same order).
+    Normals point from ``ia`` to ``ib`` whatever the kind order used inside. ``settings`` selects
+    the compiled kernels (``kernels.use_compiled``; None: the default, compiled when available).
     """
     n = alg.n
     Q = ia.size
@@ -546,6 +636,8 @@ def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, ma
     A = np.where(swap, ib, ia)
     B = np.where(swap, ia, ib)
     code = np.minimum(ka, kb) * _NKINDS + np.maximum(ka, kb)
+    # ball, box or polytope against a polytope: one group (one call of the convex kernel)
+    code = np.where(np.maximum(ka, kb) == SHAPE_POLYTOPE, SHAPE_POLYTOPE * (_NKINDS + 1), code)
     parts, offsets = [], []
     for cd in np.unique(code):  # loop over the few kind pairs present
         sel = np.flatnonzero(code == cd)
@@ -562,9 +654,9 @@ def collide_colliders(alg: Algebra, c: Colliders, ia: IntArray, ib: IntArray, ma
         elif lo == SHAPE_POLYTOPE and hi == SHAPE_HALFSPACE:
             mp = polytope_halfspace(c, a, b, m, store)
         elif lo == SHAPE_BOX and hi == SHAPE_BOX:
-            mp = _box_box(alg, c, a, b, m, compiled)
+            mp = _box_box(alg, c, a, b, m, _kernels.use_compiled(settings))
         elif hi == SHAPE_POLYTOPE:  # ball, box or polytope against a polytope
-            mp = _convex_pairs(alg, c, a, b, m, store)
+            mp = _convex_pairs(alg, c, a, b, m, store, settings)
         else:  # half-space/half-space: no contact
             continue
         parts.append(mp._replace(pair=sel[mp.pair]))
@@ -647,7 +739,7 @@ def find_contacts(alg: Algebra, bodies: Bodies, pairs: IntArray, shapes: list[An
     t = np.arange(vp.size) - (np.cumsum(vcount) - vcount)[vp]
     ia = start[sa][vp] + t // nb[vp]
     ib = start[sb][vp] + t % nb[vp]
-    mp = collide_colliders(alg, col, ia, ib, margin[vp], store, _kernels.use_compiled(settings))
+    mp = collide_colliders(alg, col, ia, ib, margin[vp], store, settings)
     pair = vp[mp.pair]
     feature = _mix_pieces(mp.feature, col.piece[ia[mp.pair]], col.piece[ib[mp.pair]])
 

@@ -369,7 +369,7 @@ def bodies_overlapping_shape(sim: Simulation, shape: Any, position: Any, rotor: 
         B = body_c.count
         ib = np.repeat(np.arange(B), query_c.count)
         iq = B + np.tile(np.arange(query_c.count), B)
-        mp = nph.collide_colliders(alg, c, iq, ib, np.zeros(ib.size), store)
+        mp = nph.collide_colliders(alg, c, iq, ib, np.zeros(ib.size), store, sim.settings)
     finally:
         store.forget_since(mark)  # the query shape is not kept in the simulation's store
     hit = mp.depth >= 0.0
