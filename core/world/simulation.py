@@ -90,8 +90,16 @@ class Settings:
         rest_speed: a body rests while its speed (plus angular speed times size) is below this, m/s.
         rest_time: how long every body of an island must rest before it sleeps, s.
 
-    Why each default is what it is (measured on our own scenes; see README "Settings"):
-    DEFAULTS_RATIONALE below, kept beside the values and checked by the tests.
+    Defaults, and what is measured about them so far (stack of ten boxes through the narrowphase,
+    600 steps at 60 Hz, sleeping off): with the defaults below the settled overlap at the bottom
+    contacts is 11.2 / 10.0 / 8.4 / 9.4 mm in 2-D / 3-D / 4-D / 5-D, beyond the 5 mm allowance:
+    a resting row that carries a load W sits about W / (m_eff w^2) past the allowance, and the
+    spring is capped at half the step rate (30 Hz at 60 Hz). Measured alternative: 3 substeps
+    with a 90 Hz spring settle the same stack at 5.4-5.7 mm (within the allowance + 1 mm) but
+    cost ~2.3x per step, so it is not the default yet; a game that needs tight stacks can set
+    ``substeps=3, spring_frequency=90``. Fewer passes than 8 + 3 were measured to let stacks drift
+    (see ``ndrigid.core.dynamics.solver``); without warm starting the stack sinks 8.4 mm and keeps
+    5.2 J of jitter.
     """
 
     dt: float = 1.0 / 60.0
