@@ -94,10 +94,11 @@ class Settings:
     600 steps at 60 Hz, sleeping off): with the defaults below the settled overlap at the bottom
     contacts is 11.2 / 10.0 / 8.4 / 9.4 mm in 2-D / 3-D / 4-D / 5-D, beyond the 5 mm allowance:
     a resting row that carries a load W sits about W / (m_eff w^2) past the allowance, and the
-    spring is capped at half the step rate (30 Hz at 60 Hz). Measured alternative: 3 substeps
-    with a 90 Hz spring settle the same stack at 5.4-5.7 mm (within the allowance + 1 mm) but
-    cost ~2.3x per step, so it is not the default yet; a game that needs tight stacks can set
-    ``substeps=3, spring_frequency=90``. Fewer passes than 8 + 3 were measured to let stacks drift
+    spring is capped at half the step rate (30 Hz at 60 Hz). Measured alternative, not adopted:
+    3 substeps, a 90 Hz spring and a spring that rests at the allowance settle the same stack at
+    5.4-5.7 mm (within the allowance + 1 mm) but cost ~2.3x per step; with 3 substeps alone,
+    lightly loaded contacts creep (a 4-D stack sank 1.6 cm in 10 s). Fewer passes than 8 + 3 were
+    measured to let stacks drift
     (see ``ndrigid.core.dynamics.solver``); without warm starting the stack sinks 8.4 mm and keeps
     5.2 J of jitter.
     """
