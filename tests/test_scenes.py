@@ -180,7 +180,7 @@ def test_glancing_spinning_collision_conserves_momentum(dim, rng):
 # stacking
 # ---------------------------------------------------------------------------------------------
 
-# A 5-D stack of ten sways 0.7-1.4 cm over 10 s with the default 8 velocity iterations (exact face
+# A 5-D stack of ten sways 0.7-1.4 cm over 10 s with the default 8 solver passes (exact face
 # contacts too, bench/solver.py exact_stack: 1.2 cm), so the 5-D case runs with 12 iterations, as the
 # README's solver section advises for tall 5-D stacks. Measured with 12 (three starts with 1 mm
 # jitter): 0.39-0.51 cm; with substeps=2 instead: 0.26 cm.
