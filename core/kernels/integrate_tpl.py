@@ -347,36 +347,47 @@ def accelerate(kind, awake, inv_mass, force, linear_damping, velocity, inv_inert
 
 
 @njit(cache=True, error_model="numpy")
+def _move_body(i, dx, B, local_centroid, position, rotor, rotation, ws, M):
+    """Move body i: centre of mass by dx (n,), orientation by the rotor exp(-B/2) (B (k,)), then one
+    renormalisation step and the rotation matrix; the body origin follows the centre of mass
+    (scratch rows 0-7 and 17-19 of ws, M (n, n))."""
+    dR = ws[17]
+    R = ws[18]
+    com = ws[19]
+    for t in range(N):
+        s = 0.0
+        for j in range(N):
+            s += rotation[i, t, j] * local_centroid[i, j]
+        com[t] = position[i, t] + s + dx[t]
+    rotor_exp(B, -0.5, dR, ws)
+    rotor_mul(dR, rotor[i], R)
+    rotor_normalize(R, ws)
+    rotor_to_matrix(R, M)
+    for e in range(E):
+        rotor[i, e] = R[e]
+    for t in range(N):
+        s = 0.0
+        for j in range(N):
+            rotation[i, t, j] = M[t, j]
+            s += M[t, j] * local_centroid[i, j]
+        position[i, t] = com[t] - s
+
+
+@njit(cache=True, error_model="numpy")
 def advance_poses(kind, awake, velocity, angular_velocity, local_centroid, position, rotor, rotation, dt):
     """Move every awake dynamic or kinematic body by its velocities over dt, in place."""
     ws = _workspace()
     B = ws[16]
-    dR = ws[17]
-    R = ws[18]
-    com = ws[19]
+    dx = ws[20]
     M = np.empty((N, N))
     for i in range(kind.shape[0]):
         if (kind[i] != DYNAMIC and kind[i] != KINEMATIC) or not awake[i]:
             continue
         for t in range(N):
-            s = 0.0
-            for j in range(N):
-                s += rotation[i, t, j] * local_centroid[i, j]
-            com[t] = position[i, t] + s + dt * velocity[i, t]
+            dx[t] = dt * velocity[i, t]
         for p in range(K):
             B[p] = dt * angular_velocity[i, p]
-        rotor_exp(B, -0.5, dR, ws)
-        rotor_mul(dR, rotor[i], R)
-        rotor_normalize(R, ws)
-        rotor_to_matrix(R, M)
-        for e in range(E):
-            rotor[i, e] = R[e]
-        for t in range(N):
-            s = 0.0
-            for j in range(N):
-                rotation[i, t, j] = M[t, j]
-                s += M[t, j] * local_centroid[i, j]
-            position[i, t] = com[t] - s
+        _move_body(i, dx, B, local_centroid, position, rotor, rotation, ws, M)
 
 
 @njit(cache=True, error_model="numpy")
@@ -384,38 +395,14 @@ def push_poses(rows, dX, local_centroid, position, rotor, rotation):
     """Move bodies ``rows`` by displacements dX (R, n + k): centre of mass by dx, orientation by the
     rotor exp(-dB/2) (the solver's position push)."""
     ws = _workspace()
-    B = ws[16]
-    dR = ws[17]
-    R = ws[18]
-    com = ws[19]
     M = np.empty((N, N))
     for q in range(rows.shape[0]):
-        i = rows[q]
         busy = False
         for t in range(N + K):
             if dX[q, t] != 0.0:
                 busy = True
-        if not busy:
-            continue
-        for t in range(N):
-            s = 0.0
-            for j in range(N):
-                s += rotation[i, t, j] * local_centroid[i, j]
-            com[t] = position[i, t] + s + dX[q, t]
-        for p in range(K):
-            B[p] = dX[q, N + p]
-        rotor_exp(B, -0.5, dR, ws)
-        rotor_mul(dR, rotor[i], R)
-        rotor_normalize(R, ws)
-        rotor_to_matrix(R, M)
-        for e in range(E):
-            rotor[i, e] = R[e]
-        for t in range(N):
-            s = 0.0
-            for j in range(N):
-                rotation[i, t, j] = M[t, j]
-                s += M[t, j] * local_centroid[i, j]
-            position[i, t] = com[t] - s
+        if busy:
+            _move_body(rows[q], dX[q, :N], dX[q, N:], local_centroid, position, rotor, rotation, ws, M)
 
 
 def warm_up():
