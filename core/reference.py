@@ -25,7 +25,8 @@ depths and accumulated impulses to 1e-9 on small scenes in 2-D to 5-D). It is no
   involving a general convex polytope call :func:`gjk.convex_pair` / :func:`gjk.ball_convex`,
   which are per pair already;
 * ``solve_impulses``: contact by contact, the same sequence (core/dynamics/solver.py): prepare each row
-  (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias),
+  (normal and Householder tangent basis, Jacobians, split effective masses, soft-constraint bias
+  with the spring's rest point moved up by the manifold's mean load deflection),
   warm start by key (else by the nearest last-step point of the same pair), biased iterations and
   bias-free passes per batch in colour order (per row: the normal impulse, then the friction
   vector from the tangent speeds after it, kept on the ball mu lambda_n, along the slip for a
@@ -1359,7 +1360,6 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         sep = -float(c.depth[i])
         spec = sep > 0.0
         soft = float(c.depth[i]) > 0.0
-        push = max(rate * min(sep + settings.overlap_allowance, 0.0), -settings.separation_speed_cap)
         X_ab = np.concatenate([X[a], X[b]])
         prepared.append(_Row(
             i=i, a=a, b=b, colour=col, manifold=int(c.manifold[i]), D=D, G=G, H=H, K01=K[0, 1:].copy(),
@@ -1367,12 +1367,28 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             mu=mu_k if sliding[i] else max(mu_s, mu_k),
             # speculative rows are rigid and allow closing at gap/dt in every pass; touching rows
             # push overlap beyond the slop out softly in the biased passes only
-            bias_on=sep / dt if spec else push, bias_off=sep / dt if spec else 0.0,
+            bias_on=sep / dt, bias_off=sep / dt if spec else 0.0,
             # overlapping rows are soft in the biased passes; exactly touching rows stay rigid
             keep_on=1.0 - (iscale * unsplit if soft else 0.0), gain_on=mass_n * (mscale if soft else 1.0),
             e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
             lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], sliding=sliding[i],
             slides_now=False, bounces=False, sep=sep, k_unsplit=float(KA[0, 0] + KB[0, 0])))
+
+    # an overlapping row's spring rests at the allowance less the mean static deflection of its
+    # manifold's overlapping rows under the warm-started load, lambda / (m_eff dt w^2)
+    w_spring = 2.0 * np.pi * hertz
+    stiff = dt * w_spring * w_spring
+    defl: dict[int, list[float]] = {}
+    for r in prepared:
+        if r.sep < 0.0:
+            acc = defl.setdefault(r.manifold, [0.0, 0.0])
+            acc[0] += r.lam_n * r.k_unsplit / stiff
+            acc[1] += 1.0
+    for r in prepared:
+        if r.sep <= 0.0:
+            total, count = defl.get(r.manifold, [0.0, 0.0])
+            rest_at = settings.overlap_allowance - total / max(count, 1.0)
+            r.bias_on = max(rate * min(r.sep + rest_at, 0.0), -settings.separation_speed_cap)
 
     # warm start: apply last step's accumulated impulses once
     for r in prepared:

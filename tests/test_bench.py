@@ -57,3 +57,15 @@ def test_bad_arguments_exit_with_a_message(capsys) -> None:  # type: ignore[no-u
     assert "scene" in capsys.readouterr().err
     with pytest.raises(SystemExit):
         main(["pile", "--dim", "1"])
+
+
+def test_defaults_bench_prints_one_line_per_variant(capsys) -> None:  # type: ignore[no-untyped-def]
+    """``python -m ndrigid.bench.defaults``: each group prints its variants; the deep-overlap scene
+    gets a box out of the floor with the defaults (the figure the Settings docstring quotes)."""
+    from ndrigid.bench.defaults import GROUPS
+    from ndrigid.bench.defaults import main as defaults_main
+
+    assert defaults_main(["deep", "spin", "--dims", "2"]) == 0
+    lines = [ln for ln in capsys.readouterr().out.splitlines() if "2-D" in ln]
+    assert len(lines) == len(GROUPS["deep"][1]) + len(GROUPS["spin"][1])
+    assert lines[0].startswith("defaults") and "out of the floor after" in lines[0]

@@ -175,7 +175,7 @@ def _pass(biased, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bia
 
 @njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
-          lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale,
+          lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
           allowance, cap, bounce_thr, stick_tol, slip_speed):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
@@ -313,10 +313,6 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         sp = -depth[i]
         sep[q] = sp
         spec = sp > 0.0
-        push = rate * min(sp + allowance, 0.0)
-        if push < -cap:
-            push = -cap
-        bias_on[q] = sp / dt if spec else push
         soft = depth[i] > 0.0
         keep_on[q] = 1.0 - (iscale * unsplit if soft else 0.0)
         gain_on[q] = mn * (mscale if soft else 1.0)
@@ -337,6 +333,27 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         vn0[q] = s4 + s5
         e[q] = rest[i]
         may_b[q] = (e[q] > 0.0) and (vn0[q] < -bounce_thr)
+
+    # the spring rests at the allowance less the mean static deflection of its manifold's
+    # overlapping points under the warm-started load (solver.py, _load_deflection)
+    nman = maxman + 1
+    defl_sum = np.zeros(nman)
+    defl_cnt = np.zeros(nman)
+    for q in range(M):
+        if sep[q] < 0.0:
+            defl_sum[man[q]] += lam_n[q] * unsplit_k[q] / stiff
+            defl_cnt[man[q]] += 1.0
+    for q in range(M):
+        sp = sep[q]
+        if sp > 0.0:
+            bias_on[q] = sp / dt
+        else:
+            mq = man[q]
+            rest_at = allowance - defl_sum[mq] / max(defl_cnt[mq], 1.0)
+            push = rate * min(sp + rest_at, 0.0)
+            if push < -cap:
+                push = -cap
+            bias_on[q] = push
 
     # warm start: every row's accumulated impulses once, side A then side B
     for side in range(2):
@@ -364,7 +381,6 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
 
     # sliding, decided per manifold: all its friction at the limit and a slip left after the solve
-    nman = maxman + 1
     max_slip2 = np.zeros(nman)
     total_t = np.zeros(nman)
     limit = np.zeros(nman)
@@ -469,4 +485,4 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 0.005, 3.0, 1.0, 1e-9, 1e-2)
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2)

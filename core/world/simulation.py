@@ -62,7 +62,8 @@ class Settings:
             numpy path (so does the environment variable ``NDRIGID_KERNELS=numpy``).
 
     Solver passes
-        solver_passes: sequential-impulse passes with the soft overlap bias.
+        solver_passes: sequential-impulse passes with the soft overlap bias (5-D stacks taller
+            than ten boxes want 12).
         bias_free_passes: passes without the bias, which take the push velocity out again.
         warm_start: start each row from last step's impulse matched by feature ids.
         solver_batching: how the vectorised solver batches rows: "point" (colour single points,
@@ -74,7 +75,8 @@ class Settings:
         spring_frequency: natural frequency of the contact spring, Hz (capped at half the step
             rate).
         spring_damping_ratio: damping ratio of the contact spring (1 is critical).
-        overlap_allowance: overlap left uncorrected, m, so that resting contacts persist.
+        overlap_allowance: overlap left uncorrected, m, so that resting contacts persist; a
+            loaded contact settles at it (the spring's rest point allows for its static load).
         separation_speed_cap: fastest speed at which overlap is pushed apart, m/s.
 
     Collision margins
@@ -90,17 +92,54 @@ class Settings:
         rest_speed: a body rests while its speed (plus angular speed times size) is below this, m/s.
         rest_time: how long every body of an island must rest before it sleeps, s.
 
-    Defaults, and what is measured about them so far (stack of ten boxes through the narrowphase,
-    600 steps at 60 Hz, sleeping off): with the defaults below the settled overlap at the bottom
-    contacts is 11.2 / 10.0 / 8.4 / 9.4 mm in 2-D / 3-D / 4-D / 5-D, beyond the 5 mm allowance:
-    a resting row that carries a load W sits about W / (m_eff w^2) past the allowance, and the
-    spring is capped at half the step rate (30 Hz at 60 Hz). Measured alternative, not adopted:
-    3 substeps, a 90 Hz spring and a spring that rests at the allowance settle the same stack at
-    5.4-5.7 mm (within the allowance + 1 mm) but cost ~2.3x per step; with 3 substeps alone,
-    lightly loaded contacts creep (a 4-D stack sank 1.6 cm in 10 s). Fewer passes than 8 + 3 were
-    measured to let stacks drift
-    (see ``ndrigid.core.dynamics.solver``); without warm starting the stack sinks 8.4 mm and keeps
-    5.2 J of jitter.
+    Why each default is what it is. Every figure below is printed by
+    ``python -m ndrigid.bench.defaults`` (bench/defaults.py: the scenes, one setting changed per
+    line); "the stack" is ten unit boxes of 1000 kg on a floor at 60 Hz, sleeping off, measured
+    over 10 s after a 1 s settle: deepest overlap at any contact / top-box drift / peak kinetic
+    energy per kg, in 2-D / 3-D / 4-D / 5-D. With every default: 5.26 / 5.16 / 5.07 / 5.23 mm
+    (within the allowance plus 1 mm), 0.27 / 0.61 / 0.37 / 0.88 cm, at most 2.1e-4 J/kg.
+
+    * ``dt`` 1/60 s: the display rate of most games, so one step per frame.
+    * ``substeps`` 1: 2 substeps hold the stack better (drift 0.04-0.30 cm) but cost 1.4-2.3x per
+      step in our runs (every stage runs twice) for an overlap that 1 substep already keeps
+      within 6 mm.
+    * ``gyroscopic`` "implicit": a free box spinning 10 rad/s about its unstable middle axis keeps
+      its world angular momentum to 0.32-0.35 % over 10 s (3-D to 5-D); "explicit" gains 116-481 %
+      kinetic energy and 47-174 % momentum error, "none" keeps the energy but not the momentum
+      (0.75-0.95 %). The implicit step loses energy instead (-23 % in that test), which is the
+      stable side to err on.
+    * ``solver_passes`` 8 and ``bias_free_passes`` 3: 6 + 2 lets the 2-D stack drift 9.6 cm
+      (peak 1.6e-2 J/kg) and the 5-D one 2.7 cm; without bias-free passes (8 + 0) the stack
+      jitters (2-D 3.3e-2 J/kg, drift 2.1 cm).
+    * ``warm_start`` True: without it the stack falls (drift over 12 m, overlap 47-209 mm).
+    * ``solver_batching`` "point": the only batching that holds a stack of ten (numbers in
+      core/dynamics/solver.py; "manifold" drifts 15 cm in 4-D, "jacobi" collapses).
+    * ``spring_frequency`` 30 Hz, the cap at 60 Hz: 15 Hz lets the 2-D and 3-D stacks drift 34
+      and 25 cm; above half the step rate the spring rings (with the cap lifted, 60 Hz: 2-D drift
+      2.4 cm and peak 4.5e-2 J/kg, measured before the load compensation below).
+    * ``spring_damping_ratio`` 10: ratio 1 drifts 2.6-28 cm at up to 0.11 J/kg, ratio 3 up to
+      11 cm, ratio 30 0.9-1.9 cm; 10 is the only one of these under 1 cm in every dimension.
+    * ``overlap_allowance`` 5 mm: 2 mm keeps the overlap at 2.1-2.4 mm but the 5-D stack drifts
+      1.5 cm; 10 mm drifts 0.7-1.9 cm. The spring rests at the allowance less its static
+      deflection under last step's load (core/dynamics/solver.py), so a loaded contact settles at
+      the allowance instead of W / (m_eff w^2) past it (before that compensation the same stack
+      settled at 11.2 / 10.0 / 8.4 / 9.4 mm).
+    * ``separation_speed_cap`` 3 m/s: the spring's own rate (8.1 /s at the defaults) pushes a
+      box created 0.2 m deep out in 38 steps, at any cap above 1.6 m/s; the cap binds only past
+      0.37 m of overlap, where it keeps the push below 5 cm per step. The push moves positions
+      only: the box never moves faster than 0.02 m/s.
+    * ``speculative_margin`` 0.1 m: a 4-D pile of 100 bodies has 0.13 J of kinetic energy left
+      after 5 s with 0.1, against 3.1 J with 0.02 and 3.4 J with 0; the cost is rows (956 against
+      492 per step without a margin). The stack and the bounce series do not change with it.
+    * ``broadphase_margin`` 0.05 m: the broadphase fattens boxes by at least half the speculative
+      margin, which is 0.05 m, so this is the least that changes nothing; 0.2 m doubles the
+      candidate pairs of a falling 3-D pile (1,216 against 527) for no contact more.
+    * ``bounce_threshold`` 1 m/s: a ball with restitution 0.5 dropped from 1 m bounces within
+      0.5-0.7 % of e^(2k) h for the first three bounces and rests after 1.28 s; 0.2 m/s rests
+      after 1.45 s with the same heights (the extra bounces are below 5 cm); 2 m/s drops the third
+      bounce.
+    * ``sleep_enabled`` True, ``rest_speed`` 0.05 m/s, ``rest_time`` 0.5 s: the stack falls
+      asleep after 0.82-1.22 s; 0.01 m/s takes 2.0-2.5 s, a rest time of 1 s 1.3-1.7 s.
     """
 
     dt: float = 1.0 / 60.0
