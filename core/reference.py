@@ -84,7 +84,7 @@ from .collision.sat import (
     _MIXED_FLAG,
     _MIXED_REL,
 )
-from .dynamics.solver import _MATCH_DISTANCE, _SLIP_SPEED, _STICK_TOL
+from .dynamics.solver import _MATCH_DISTANCE, _RELAX_EXTRA, _RELAX_TOL, _SLIP_SPEED, _STICK_TOL
 from .dynamics.solver import HERTZ_CAP as _HERTZ_CAP
 from .errors import InputTypeError
 from .state.components import (
@@ -1453,6 +1453,18 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     X_biased = X.copy()
     for _ in range(int(settings.bias_free_passes)):
         sweep(False)
+
+    def push_left() -> float:
+        """The largest separating normal speed of a row that holds a normal impulse (0 if none)."""
+        speeds = [float(r.G[0] @ np.concatenate([X[r.a], X[r.b]])) for r in prepared if r.lam_n > 0.0]
+        return max(speeds) if speeds else 0.0
+
+    # more bias-free passes while such a row still separates faster than the tolerance (push
+    # velocity not yet taken out), at most _RELAX_EXTRA more
+    extra = 0
+    while int(settings.bias_free_passes) and extra < _RELAX_EXTRA and push_left() > _RELAX_TOL:
+        sweep(False)
+        extra += 1
 
     # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
     # is at the sum of their limits and some point still slips faster than the slip speed;

@@ -34,6 +34,10 @@ contacts stated as an implicit (backward-Euler) spring-damper, derived in :func:
    A speculative row (gap g > 0) is rigid and allows a closing speed of g/dt
    (speculative contacts, common practice), so a fast body arrives just touching.
 4. *Relax* (``bias_free_passes``) without the bias, which takes the push velocity out again.
+   Where that is not enough, up to 27 more bias-free passes run while a row that holds a normal
+   impulse still separates faster than 5 cm/s (push velocity not yet taken out): 50 boxes
+   created at one point leave at 0.16 m/s at most instead of 6.07 m/s (3-D and 4-D, no
+   gravity), while a resting stack of ten never needs an extra pass (660 of 660 steps).
 5. *Restitution*, one pass: rows whose normal approach speed before the solve exceeded
    ``bounce_threshold`` and that took a normal impulse get a separating speed of e times it.
    A speculative row that took no impulse (the bodies do not meet within the step) never bounces;
@@ -157,6 +161,10 @@ DEFAULT_BATCHING = "point"
 _STICK_TOL = 1e-9
 # a point that still slips faster than this after the solve counts as sliding, m/s
 _SLIP_SPEED = 1e-2
+# bias-free passes continue (at most _RELAX_EXTRA more) while a row holding an impulse separates
+# faster than _RELAX_TOL, m/s
+_RELAX_TOL = 0.05
+_RELAX_EXTRA = 27
 # contact stiffness is capped at this fraction of the step rate (a stiffer spring than the step
 # can resolve only rings)
 HERTZ_CAP = 0.5
@@ -567,6 +575,12 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     X_biased = X.copy()
     for _ in range(bias_free):
         _sweep(batches, Xf, X, False)
+    # more bias-free passes while a row that holds an impulse still separates faster than the
+    # tolerance: that speed is push velocity the passes have not taken out yet
+    extra = 0
+    while bias_free and extra < _RELAX_EXTRA and _push_left(Gn, Xf, el, lam_n) > _RELAX_TOL:
+        _sweep(batches, Xf, X, False)
+        extra += 1
     # a manifold slides (kinetic friction next step) when its total friction is at its limit and
     # it still slips after the solve; one that friction stopped, or that is inside the cone,
     # sticks (static next step). Decided per manifold, not per point: a single point saturating
@@ -673,7 +687,7 @@ def _solve_rows_compiled(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntA
         int(settings.solver_passes), int(settings.bias_free_passes), float(rate), float(mscale),
         float(iscale), _stiffness(hertz, dt), float(settings.overlap_allowance),
         float(settings.separation_speed_cap),
-        float(settings.bounce_threshold), _STICK_TOL, _SLIP_SPEED)
+        float(settings.bounce_threshold), _STICK_TOL, _SLIP_SPEED, _RELAX_TOL, _RELAX_EXTRA)
     moved = np.nonzero(dyn)[0]
     bodies.velocity[moved] = X[moved, :n]
     bodies.angular_velocity[moved] = X[moved, n:]
@@ -788,6 +802,14 @@ def _sweep(batches: list[_Batch], Xf: Array, X: Array, biased: bool) -> None:
         np.subtract(new_t, old_t, out=dl[:, 1:])
         old_t[...] = new_t
         bt.apply(Xf, X, Xab0, np.einsum("md,mdj->mj", dl, bt.hh))
+
+
+def _push_left(Gn: Array, Xf: Array, el: IntArray, lam_n: Array) -> float:
+    """The largest separating normal speed (m/s) of a row that holds a normal impulse: push
+    velocity left in the velocities (0 when there is none)."""
+    vn = np.einsum("mj,mj->m", Gn, Xf.take(el))
+    held = vn[lam_n > 0.0]
+    return float(held.max()) if held.size else 0.0
 
 
 def _push_positions(alg: Algebra, bodies: Bodies, rows: IntArray, dX: Array) -> None:

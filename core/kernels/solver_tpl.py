@@ -174,9 +174,30 @@ def _pass(biased, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bia
 
 
 @njit(cache=True)
+def _push_left(A, B, G, lam_n, X):
+    """Largest separating normal speed of a row that holds a normal impulse (0 when none)."""
+    top = 0.0
+    found = False
+    for q in range(A.shape[0]):
+        if lam_n[q] <= 0.0:
+            continue
+        s = 0.0
+        for j in range(W):
+            s += G[q, 0, j] * X[A[q], j]
+        s2 = 0.0
+        for j in range(W):
+            s2 += G[q, 0, W + j] * X[B[q], j]
+        v = s + s2
+        if not found or v > top:
+            top = v
+            found = True
+    return top if found else 0.0
+
+
+@njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
-          allowance, cap, bounce_thr, stick_tol, slip_speed):
+          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -379,6 +400,13 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     for _ in range(bias_free):
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
+    # more bias-free passes while a row holding an impulse still separates faster than relax_tol
+    # (push velocity not yet taken out), at most relax_extra more
+    extra = 0
+    while bias_free > 0 and extra < relax_extra and _push_left(A, B, G, lam_n, X) > relax_tol:
+        _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
+              bias_off, mass_n, X, xab, Vs, dl, vt, nt)
+        extra += 1
 
     # sliding, decided per manifold: all its friction at the limit and a slip left after the solve
     max_slip2 = np.zeros(nman)
@@ -485,4 +513,4 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2)
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2)
