@@ -84,7 +84,15 @@ from .collision.sat import (
     _MIXED_FLAG,
     _MIXED_REL,
 )
-from .dynamics.solver import _MATCH_DISTANCE, _RELAX_EXTRA, _RELAX_TOL, _SLIP_SPEED, _STICK_TOL
+from .dynamics.solver import (
+    _MATCH_DISTANCE,
+    _RELAX_EXTRA,
+    _RELAX_TOL,
+    _SHOCK_PASSES,
+    _SHOCK_RATIO,
+    _SLIP_SPEED,
+    _STICK_TOL,
+)
 from .dynamics.solver import HERTZ_CAP as _HERTZ_CAP
 from .errors import InputTypeError
 from .state.components import (
@@ -1199,6 +1207,8 @@ class _Row:
     vn0: float
     sep: float
     k_unsplit: float
+    ka0: float  # side A's and side B's part of the normal's inverse effective mass
+    kb0: float
     lam_n: float
     lam_t: Array  # (n-1,) tangent impulse in the tangent basis
     max_n: float
@@ -1372,7 +1382,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             keep_on=1.0 - (iscale * unsplit if soft else 0.0), gain_on=mass_n * (mscale if soft else 1.0),
             e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
             lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], sliding=sliding[i],
-            slides_now=False, bounces=False, sep=sep, k_unsplit=float(KA[0, 0] + KB[0, 0])))
+            slides_now=False, bounces=False, sep=sep, k_unsplit=float(KA[0, 0] + KB[0, 0]),
+            ka0=float(KA[0, 0]), kb0=float(KB[0, 0])))
 
     # an overlapping row's spring rests at the allowance less the mean static deflection of its
     # manifold's overlapping rows under the warm-started load, lambda / (m_eff dt w^2)
@@ -1466,6 +1477,10 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         sweep(False)
         extra += 1
 
+    X_unbiased = X.copy()  # the push is what the bias-free passes took out
+    if int(settings.bias_free_passes) and batching == "point":
+        _shock_propagation(prepared, X, dyn, w)
+
     # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
     # is at the sum of their limits and some point still slips faster than the slip speed;
     # otherwise all its points stick (static next step)
@@ -1479,8 +1494,6 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     for r in prepared:
         max_slip2, total_t, limit = per_manifold[r.manifold]
         r.slides_now = total_t >= (1.0 - 1e-3) * limit and limit > 0.0 and max_slip2 > _SLIP_SPEED ** 2
-
-    X_unbiased = X.copy()  # the push is what the bias-free passes took out, measured before restitution
 
     # restitution: rows that approached faster than the threshold and took an impulse bounce
     thr = float(settings.bounce_threshold)
@@ -1532,6 +1545,87 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         lam_n[r.i] = r.lam_n
         lam_t_world[r.i] = r.D[1:].T @ r.lam_t
         sliding[r.i] = r.slides_now
+
+
+def _shock_propagation(prepared: list[_Row], X: Array, dyn: Any, w: int) -> None:
+    """Shock propagation (Guendelman, Bridson and Fedkiw, SIGGRAPH 2003) on the rows that hold a
+    light body under a much heavier one, and on the rows beneath them down to the ground.
+
+    Levels: a body that is not dynamic has level 0, a dynamic one the fewest load-carrying rows
+    (normal impulse > 0) to such a body. A row between two dynamic bodies whose normal inverse
+    effective masses differ by more than _SHOCK_RATIO, between different levels, is taken, and so
+    is every load-carrying row between levels under the lower body of a taken row. The taken rows
+    are visited from the lowest level up (then by batch, then in row order) _SHOCK_PASSES times;
+    each treats its lower body as fixed: its normal and friction impulses (accumulated apart from
+    the solve's, and not warm-started) change only the upper body, so that the upper body cannot
+    sink into the lower one whatever their mass ratio. Speculative rows still allow closing at
+    gap/dt; the friction of solve and shock together stays on the ball of the total load.
+    """
+    N = X.shape[0]
+    big = N + 1
+    held = [r for r in prepared if r.lam_n > 0.0]
+
+    def ratio(r: _Row) -> float:
+        return max(r.ka0, r.kb0) / max(min(r.ka0, r.kb0), 1e-300)
+
+    if not any(dyn[r.a] and dyn[r.b] and ratio(r) > _SHOCK_RATIO for r in held):
+        return
+    level = [0 if not dyn[i] else big for i in range(N)]
+    changed = True
+    while changed:  # shortest load-carrying path to a body that is not dynamic
+        changed = False
+        new = list(level)
+        for r in held:
+            new[r.b] = min(new[r.b], level[r.a] + 1)
+            new[r.a] = min(new[r.a], level[r.b] + 1)
+        for i in range(N):
+            if not dyn[i]:
+                new[i] = 0
+        if new != level:
+            level, changed = new, True
+    steps = [r for r in held if level[r.a] != level[r.b] and min(level[r.a], level[r.b]) < big]
+    lower = {id(r): (r.a if level[r.a] < level[r.b] else r.b) for r in steps}
+    upper = {id(r): (r.b if level[r.a] < level[r.b] else r.a) for r in steps}
+    taken = [r for r in steps if dyn[r.a] and dyn[r.b] and ratio(r) > _SHOCK_RATIO]
+    if not taken:
+        return
+    under = {lower[id(r)] for r in taken}
+    chosen = {id(r) for r in taken}
+    grew = True
+    while grew:  # the rows under them, down to the ground
+        grew = False
+        for r in steps:
+            if id(r) not in chosen and upper[id(r)] in under:
+                chosen.add(id(r))
+                under.add(lower[id(r)])
+                grew = True
+    rows = [r for r in prepared if id(r) in chosen]  # in (colour, manifold) order
+    rows.sort(key=lambda r: (min(level[r.a], level[r.b]), r.colour))
+    parts = []
+    for r in rows:
+        up_is_b = level[r.a] < level[r.b]
+        sl = slice(w, 2 * w) if up_is_b else slice(0, w)
+        Hu = np.zeros_like(r.H)
+        Hu[:, sl] = r.H[:, sl]
+        Ku = r.G[:, sl] @ r.H[:, sl].T  # effective mass with the lower body fixed
+        parts.append((r, Hu, Ku, np.linalg.inv(Ku[1:, 1:])))
+    acc = {id(r): np.zeros(r.G.shape[0]) for r in rows}
+    for _ in range(_SHOCK_PASSES):
+        for r, Hu, Ku, Kt_inv in parts:
+            V = r.G @ np.concatenate([X[r.a], X[r.b]])
+            old = acc[id(r)]
+            new_n = max(old[0] - (V[0] + r.bias_off) / Ku[0, 0], 0.0)
+            vt = V[1:] + Ku[0, 1:] * (new_n - old[0])
+            lt = r.lam_t + old[1:] - Kt_inv @ vt
+            radius = r.mu * (r.lam_n + new_n)
+            norm = float(np.sqrt(lt @ lt))
+            if norm > radius:
+                lt = lt * (radius / norm)
+            new = np.concatenate([[new_n], lt - r.lam_t])
+            change = (new - old) @ Hu
+            X[r.a] += change[:w]
+            X[r.b] += change[w:]
+            acc[id(r)] = new
 
 
 def _push_pose(alg: Algebra, bodies: Bodies, i: int, dX: Array) -> None:

@@ -201,7 +201,22 @@ def scene_ball_on_box(dim: int, seed: int, settings: Settings) -> Simulation:
     return sim
 
 
-SCENES = {"mixed": scene_mixed, "stack": scene_stack, "ball_on_box": scene_ball_on_box}
+def scene_heavy_on_light(dim: int, seed: int, settings: Settings) -> Simulation:
+    """A 300 kg box on a 1 kg box on a floor, beside a 1 kg ball under a 100 kg box (the heavy-on-
+    light rows and the rows beneath them take the shock-propagation sweep)."""
+    rng = np.random.default_rng(seed)
+    sim = Simulation(dim, settings=settings)
+    _floor(sim)
+    tilt = sim.alg.rotor(rng.normal(size=sim.alg.k) * 0.02)
+    sim.add_body(Box(np.full(dim, 0.25)), position=_at(dim, 0.0, 0.248), mass=1.0)
+    sim.add_body(Box(np.full(dim, 0.25)), position=_at(dim, 0.01, 0.745), rotor=tilt, mass=300.0)
+    sim.add_body(Ball(dim, 0.2), position=_at(dim, 2.0, 0.199), mass=1.0)
+    sim.add_body(Box(np.full(dim, 0.3)), position=_at(dim, 2.05, 0.697), mass=100.0)
+    return sim
+
+
+SCENES = {"mixed": scene_mixed, "stack": scene_stack, "ball_on_box": scene_ball_on_box,
+          "heavy_on_light": scene_heavy_on_light}
 
 
 def impulses_by_key(sim: Simulation) -> dict[int, tuple[float, np.ndarray, bool]]:

@@ -267,6 +267,41 @@ def test_pyramid_stands(dim):
 
 
 # ---------------------------------------------------------------------------------------------
+# mass ratios
+# ---------------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("ratio", [10, 100, 1000])
+@dims(3, 4)
+def test_heavy_box_on_light_box_holds(dim, ratio):
+    """A box `ratio` times heavier resting on a 1 kg box on a floor: after 10 s the light box is
+    at its half extent and the heavy one at three half extents (stacked half extents: geometry),
+    each lower by at most the allowance of every contact below it plus 1 mm (each contact may
+    overlap by ``overlap_allowance``, as in an equal-mass stack), neither higher by more than 1 mm;
+    no contact overlaps more than the allowance plus 1 mm over the last 2 s; the heavy box stays
+    on top. Regression: Gauss-Seidel alone pressed the light box into the floor and let the heavy
+    one slide off it from 300:1 (shock propagation, Guendelman et al. 2003, fixes it)."""
+    sim = Simulation(dim)
+    up = up_vector(dim)
+    h = 0.25
+    sim.add_body(HalfSpace(up, 0.0), kind="static")
+    light = sim.add_body(Box(np.full(dim, h)), position=h * up, mass=1.0)
+    heavy = sim.add_body(Box(np.full(dim, h)), position=3 * h * up, mass=float(ratio))
+    allow = sim.settings.overlap_allowance
+    deepest = 0.0
+    for i in range(600):
+        sim.step()
+        if i >= 480 and sim.contacts.count:
+            deepest = max(deepest, float(sim.contacts.depth.max()))
+    y_light, y_heavy = sim.position(light)[1], sim.position(heavy)[1]
+    assert -(allow + 0.001) <= y_light - h <= 0.001
+    assert -(2 * allow + 0.001) <= y_heavy - 3 * h <= 0.001
+    assert deepest <= allow + 0.001
+    side = sim.position(heavy) - sim.position(light)
+    assert np.linalg.norm(side - 2 * h * up) < 0.1 * h  # still on top
+
+
+# ---------------------------------------------------------------------------------------------
 # deep spawns
 # ---------------------------------------------------------------------------------------------
 

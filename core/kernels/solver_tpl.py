@@ -195,9 +195,167 @@ def _push_left(A, B, G, lam_n, X):
 
 
 @njit(cache=True)
+def _shock(A, B, sA, sB, col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, ratio_min, npasses):
+    """Shock propagation on the rows holding a light body under a much heavier one and the rows
+    beneath them (solver.py, _shock_sweep: same rows, same order); changes X in place."""
+    M = A.shape[0]
+    NB = X.shape[0]
+    ratio = np.empty(M)
+    any_c = False
+    for q in range(M):
+        hi = max(ka0[q], kb0[q])
+        lo = max(min(ka0[q], kb0[q]), 1e-300)
+        ratio[q] = hi / lo
+        if lam_n[q] > 0.0 and sA[q] and sB[q] and ratio[q] > ratio_min:
+            any_c = True
+    if not any_c:
+        return
+    big = NB + 1
+    level = np.full(NB, big, np.int64)
+    for q in range(M):
+        if not sA[q]:
+            level[A[q]] = 0
+        if not sB[q]:
+            level[B[q]] = 0
+    new = level.copy()
+    for _ in range(NB):
+        for i in range(NB):
+            new[i] = level[i]
+        for q in range(M):
+            if lam_n[q] > 0.0:
+                if level[A[q]] + 1 < new[B[q]]:
+                    new[B[q]] = level[A[q]] + 1
+                if level[B[q]] + 1 < new[A[q]]:
+                    new[A[q]] = level[B[q]] + 1
+        changed = False
+        for i in range(NB):
+            if new[i] != level[i]:
+                changed = True
+            level[i] = new[i]
+        if not changed:
+            break
+    step = np.zeros(M, np.bool_)
+    take = np.zeros(M, np.bool_)
+    low_b = np.empty(M, np.int64)
+    up_b = np.empty(M, np.int64)
+    under = np.zeros(NB, np.bool_)
+    n_take = 0
+    for q in range(M):
+        la = level[A[q]]
+        lb = level[B[q]]
+        low_b[q] = A[q] if la < lb else B[q]
+        up_b[q] = B[q] if la < lb else A[q]
+        step[q] = lam_n[q] > 0.0 and la != lb and min(la, lb) < big
+        if step[q] and sA[q] and sB[q] and ratio[q] > ratio_min:
+            take[q] = True
+            under[low_b[q]] = True
+            n_take += 1
+    if n_take == 0:
+        return
+    grew = True
+    while grew:
+        grew = False
+        more = np.zeros(M, np.bool_)
+        for q in range(M):
+            if step[q] and not take[q] and under[up_b[q]]:
+                more[q] = True
+                grew = True
+        for q in range(M):
+            if more[q]:
+                take[q] = True
+                under[low_b[q]] = True
+                n_take += 1
+    # visiting order: lowest level first, then colour, then row order (stable)
+    ncol = 0
+    for q in range(M):
+        if col[q] + 1 > ncol:
+            ncol = col[q] + 1
+    rows = np.empty(n_take, np.int64)
+    gkey = np.empty(n_take, np.int64)
+    t = 0
+    for q in range(M):
+        if take[q]:
+            rows[t] = q
+            gkey[t] = min(level[A[q]], level[B[q]]) * ncol + col[q]
+            t += 1
+    rows = rows[np.argsort(gkey, kind="mergesort")]
+    # per taken row: the upper side's effective mass (lower body fixed)
+    Ku = np.empty((n_take, N, N))
+    kti = np.empty((n_take, T, T))
+    Kt = np.empty((T, T))
+    Ki = np.empty((T, T))
+    upper_lo = np.empty(n_take, np.int64)
+    for t in range(n_take):
+        q = rows[t]
+        lo = W if level[A[q]] < level[B[q]] else 0
+        upper_lo[t] = lo
+        for d in range(N):
+            for l2 in range(N):
+                s = 0.0
+                for j in range(W):
+                    s += G[q, d, lo + j] * H[q, l2, lo + j]
+                Ku[t, d, l2] = s
+        for r in range(T):
+            for u in range(T):
+                Kt[r, u] = Ku[t, 1 + r, 1 + u]
+        _invert(Kt, Ki)
+        for r in range(T):
+            for u in range(T):
+                kti[t, r, u] = Ki[r, u]
+    acc = np.zeros((n_take, N))
+    V = np.empty(N)
+    vt = np.empty(T)
+    lt = np.empty(T)
+    dl = np.empty(N)
+    for _ in range(npasses):
+        for t in range(n_take):
+            q = rows[t]
+            ia = A[q]
+            ib = B[q]
+            for d in range(N):
+                s = 0.0
+                for j in range(W):
+                    s += G[q, d, j] * X[ia, j]
+                s2 = 0.0
+                for j in range(W):
+                    s2 += G[q, d, W + j] * X[ib, j]
+                V[d] = s + s2
+            new_n = acc[t, 0] - (V[0] + bias_off[q]) / Ku[t, 0, 0]
+            if new_n < 0.0:
+                new_n = 0.0
+            dn = new_n - acc[t, 0]
+            for r in range(T):
+                vt[r] = V[1 + r] + Ku[t, 0, 1 + r] * dn
+            nrm2 = 0.0
+            for r in range(T):
+                s = 0.0
+                for u in range(T):
+                    s += kti[t, r, u] * vt[u]
+                lt[r] = lam_t[q, r] + acc[t, 1 + r] - s
+                nrm2 += lt[r] * lt[r]
+            nrm = np.sqrt(nrm2)
+            radius = mu[q] * (lam_n[q] + new_n)
+            f = radius / nrm if nrm > radius else 1.0
+            dl[0] = dn
+            acc[t, 0] = new_n
+            for r in range(T):
+                nt_ = lt[r] * f - lam_t[q, r]
+                dl[1 + r] = nt_ - acc[t, 1 + r]
+                acc[t, 1 + r] = nt_
+            body = ib if upper_lo[t] == W else ia
+            lo = upper_lo[t]
+            for j in range(W):
+                s = 0.0
+                for d in range(N):
+                    s += dl[d] * H[q, d, lo + j]
+                X[body, j] += s
+
+
+@njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
-          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra):
+          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, shock_ratio,
+          shock_passes):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -224,6 +382,11 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     kti = np.empty((M, T, T))
     mass_n = np.empty(M)
     unsplit_k = np.empty(M)
+    ka0 = np.empty(M)
+    kb0 = np.empty(M)
+    sA = np.empty(M, np.bool_)
+    sB = np.empty(M, np.bool_)
+    row_col = np.empty(M, np.int64)
     mu = np.empty(M)
     mu_tol = np.empty(M)
     sl = np.empty(M, np.bool_)
@@ -250,6 +413,9 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         ib = b_in[i]
         A[q] = ia
         B[q] = ib
+        sA[q] = sa_in[i]
+        sB[q] = sb_in[i]
+        row_col[q] = colour[i]
         man[q] = man_in[i]
         # directions: the normal, then the Householder tangent basis
         j = 0
@@ -314,6 +480,8 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         mn = 1.0 / Km[0, 0]
         mass_n[q] = mn
         unsplit_k[q] = k_a00 + k_b00
+        ka0[q] = k_a00
+        kb0[q] = k_b00
         unsplit = unsplit_k[q] * mn
         for r in range(T):
             k01[q, r] = Km[0, 1 + r]
@@ -407,6 +575,14 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
         extra += 1
+    # the push: what the bias moved, taken out of the velocities by the bias-free passes
+    push = np.empty((NB, W))
+    for i in range(NB):
+        for t in range(W):
+            push[i, t] = dt * (X_biased[i, t] - X[i, t])
+    if bias_free > 0:
+        _shock(A, B, sA, sB, row_col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, shock_ratio,
+               shock_passes)
 
     # sliding, decided per manifold: all its friction at the limit and a slip left after the solve
     max_slip2 = np.zeros(nman)
@@ -433,11 +609,6 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
             l2 += lam_t[q, r] * lam_t[q, r]
         total_t[mq] += np.sqrt(l2)
         limit[mq] += mu[q] * lam_n[q]
-
-    push = np.empty((NB, W))
-    for i in range(NB):
-        for t in range(W):
-            push[i, t] = dt * (X_biased[i, t] - X[i, t])
 
     # restitution: one pass over the rows that approached fast and met within the step
     n_toi = np.zeros(nman, np.int64)
@@ -513,4 +684,4 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2)
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 30.0, 1)
