@@ -62,8 +62,9 @@ contacts stated as an implicit (backward-Euler) spring-damper, derived in :func:
 
 Momentum: the impulses are equal and opposite at one point, so they conserve linear and angular
 momentum exactly (except the shock sweep, which changes only the upper body of a heavy-on-light
-row, and runs only in a stack that rests on something static). The two position corrections (the overlap push of step 6 and the time-of-impact
-correction of bounces on speculative rows) move bodies along the contact normal: they keep the
+row, and runs only in a stack that rests on something static). The two position corrections
+(the overlap push of step 6 and the time-of-impact correction of bounces on speculative rows)
+move bodies along the contact normal: they keep the
 linear momentum and the centre of mass, but change the orbital angular momentum x ^ m v by about
 dt p ^ v_rel when bodies overlap or bounce off-centre (zero for head-on impacts).
 
