@@ -42,8 +42,8 @@ def _bin_walls(sim: Simulation, half_width: float) -> None:
             sim.add_body(HalfSpace(-u, -half_width), kind="static")
 
 
-def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
-    """Mixed boxes and balls in a walled bin, sleeping off."""
+def build_pile(dim: int, bodies: int, seed: int, boxes_only: bool = False) -> tuple[Simulation, int]:
+    """Mixed boxes and balls (or boxes only) in a walled bin, sleeping off."""
     rng = np.random.default_rng(seed)
     sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     size = 0.5
@@ -63,7 +63,8 @@ def build_pile(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
             pos[a] = -half_width + 0.1 + (j + 0.5) * size * 1.25 + rng.uniform(-0.05, 0.05)
         pos[1] = 0.5 * size + layer * size * 1.3 + rng.uniform(0, 0.05)
         rot = sim.alg.rotor(rng.normal(size=sim.alg.k) * 0.3)
-        sim.add_body(box if i % 2 else ball, position=pos, rotor=rot, density=500.0, friction=0.6)
+        sim.add_body(box if (i % 2 or boxes_only) else ball, position=pos, rotor=rot, density=500.0,
+                     friction=0.6)
     settle = int(min(240, 60 + 3 * np.sqrt(bodies)))
     return sim, settle
 

@@ -75,6 +75,7 @@ from .algebra import Algebra
 
 # tuning constants are shared with the vectorised modules (comments where they are used)
 from .collision.clip import SELECT_QUANTUM as _SELECT_QUANTUM
+from .collision.narrowphase import _TILTED
 from .collision.sat import (
     _DEGENERATE,
     _FACE_ABS,
@@ -85,6 +86,7 @@ from .collision.sat import (
     _MIXED_REL,
 )
 from .dynamics.solver import (
+    _COUPLE_PASSES,
     _MATCH_DISTANCE,
     _RELAX_EXTRA,
     _RELAX_TOL,
@@ -470,8 +472,12 @@ def _vertices_plane(world: Array, u: Array, d: float, margin: float, cap: int, n
         else:
             tang = tangent
         ext = max(float(np.max(np.abs(t))) for t in tang)
+        # with directions (a box face) the deepest goes first only on a tilted face: depths of
+        # the candidates spread over more than _TILTED of the extent (narrowphase._reduce)
+        heights = [s[v] for v in range(V) if valid[v]]
+        tilted = bool(directions) and max(heights) - min(heights) > _TILTED * ext
         valid = _select_points(tang, valid, list(range(V)), cap, directions or [], 1e-9 * ext,
-                               None if directions else [-x for x in s])
+                               None if directions and not tilted else [-x for x in s])
     return [_Point(-u, world[v] - u * (0.5 * s[v]), -s[v], v) for v in range(V) if valid[v]]
 
 
@@ -1212,6 +1218,7 @@ class _Row:
     lam_n: float
     lam_t: Array  # (n-1,) tangent impulse in the tangent basis
     max_n: float
+    lam_warm: float  # last step's normal impulse (the load of the rolling and spin couples)
     sliding: bool  # slid last step (kinetic friction)
     slides_now: bool
     bounces: bool
@@ -1381,24 +1388,28 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             # overlapping rows are soft in the biased passes; exactly touching rows stay rigid
             keep_on=1.0 - (iscale * unsplit if soft else 0.0), gain_on=mass_n * (mscale if soft else 1.0),
             e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
-            lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], sliding=sliding[i],
-            slides_now=False, bounces=False, sep=sep, k_unsplit=float(KA[0, 0] + KB[0, 0]),
-            ka0=float(KA[0, 0]), kb0=float(KB[0, 0])))
+            lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], lam_warm=lam_n[i],
+            sliding=sliding[i], slides_now=False, bounces=False, sep=sep,
+            k_unsplit=float(KA[0, 0] + KB[0, 0]), ka0=float(KA[0, 0]), kb0=float(KB[0, 0])))
 
     # an overlapping row's spring rests at the allowance less the mean static deflection of its
     # manifold's overlapping rows under the warm-started load, lambda / (m_eff dt w^2)
     w_spring = 2.0 * np.pi * hertz
     stiff = dt * w_spring * w_spring
+    # (and less the manifold's tilt: its deepest overlap less the mean of those rows' overlaps)
     defl: dict[int, list[float]] = {}
     for r in prepared:
         if r.sep < 0.0:
-            acc = defl.setdefault(r.manifold, [0.0, 0.0])
+            acc = defl.setdefault(r.manifold, [0.0, 0.0, 0.0, 0.0])
             acc[0] += r.lam_n * r.k_unsplit / stiff
             acc[1] += 1.0
+            acc[2] += -r.sep
+            acc[3] = max(acc[3], -r.sep)
     for r in prepared:
         if r.sep <= 0.0:
-            total, count = defl.get(r.manifold, [0.0, 0.0])
-            rest_at = settings.overlap_allowance - total / max(count, 1.0)
+            total, count, depth_total, deepest = defl.get(r.manifold, [0.0, 0.0, 0.0, 0.0])
+            count = max(count, 1.0)
+            rest_at = settings.overlap_allowance - total / count - (deepest - depth_total / count)
             r.bias_on = max(rate * min(r.sep + rest_at, 0.0), -settings.separation_speed_cap)
 
     # warm start: apply last step's accumulated impulses once
@@ -1480,6 +1491,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     X_unbiased = X.copy()  # the push is what the bias-free passes took out
     if int(settings.bias_free_passes) and batching == "point":
         _shock_propagation(prepared, X, dyn, w)
+    rolling, patch = float(settings.rolling_resistance), float(settings.contact_patch_radius)
+    if rolling > 0.0 or patch > 0.0:
+        _contact_couples(alg, batches, X, inv_I, share, dyn, rolling, patch)
 
     # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
     # is at the sum of their limits and some point still slips faster than the slip speed;
@@ -1626,6 +1640,66 @@ def _shock_propagation(prepared: list[_Row], X: Array, dyn: Any, w: int) -> None
             X[r.a] += change[:w]
             X[r.b] += change[w:]
             acc[id(r)] = new
+
+
+def _contact_couples(alg: Algebra, batches: list[list[list[_Row]]], X: Array, inv_I: dict[int, Array],
+                     share: dict[tuple[int, int], int], dyn: Any, rolling: float, patch: float) -> None:
+    """Rolling resistance and spin friction at single-point contacts that carried a load last step
+    (limits from that load, lam_warm), row by row: a couple against the relative angular
+    velocity B_B - B_A in the planes of the contact frame, n ^ t_i (rolling, kept within
+    b lambda_n: Beer and Johnston's coefficient of rolling resistance b) and t_i ^ t_j (spin, kept
+    within (2/3) mu lambda_n a: Johnson 1985, uniform pressure over a patch of radius a); split
+    masses as for friction; ``_COUPLE_PASSES`` passes over the batches after the relax passes,
+    not warm-started."""
+    n = alg.n
+    pairs = [(int(i), int(j)) for i, j in alg.pairs]
+    planes = [(0, 1 + i) for i in range(n - 1)] + [(1 + i, 1 + j) for i in range(n - 1)
+                                                    for j in range(i + 1, n - 1)]
+    per_manifold: dict[int, int] = {}
+    for batch in batches:
+        for seg in batch:
+            for r in seg:
+                per_manifold[r.manifold] = per_manifold.get(r.manifold, 0) + 1
+    prep: dict[int, tuple[Array, Array, Array, Array]] = {}
+    for batch in batches:
+        for seg in batch:
+            for r in seg:
+                if per_manifold[r.manifold] != 1 or r.lam_warm <= 0.0:
+                    continue  # only single-point contacts that carried a load last step
+                S = np.array([[r.D[u, p] * r.D[v, q] - r.D[u, q] * r.D[v, p] for p, q in pairs]
+                              for u, v in planes])
+                RA = S @ inv_I[r.a].T  # rows: I_A^-1 S_d
+                RB = S @ inv_I[r.b].T
+                s_a = float(share[(r.colour, r.a)]) if dyn[r.a] else 1.0
+                s_b = float(share[(r.colour, r.b)]) if dyn[r.b] else 1.0
+                Ks = s_a * S @ RA.T + s_b * S @ RB.T
+                prep[id(r)] = (S, RA, RB, np.linalg.inv(Ks))
+    acc = {key: np.zeros(v[0].shape[0]) for key, v in prep.items()}
+    for _ in range(_COUPLE_PASSES):
+        for batch in batches:
+            changes = []
+            for seg in batch:
+                dA = np.zeros(X.shape[1])
+                dB = np.zeros(X.shape[1])
+                for r in seg:
+                    if id(r) not in prep:
+                        continue
+                    S, RA, RB, Ks_inv = prep[id(r)]
+                    spin = S @ (X[r.b, n:] - X[r.a, n:])
+                    old = acc[id(r)]
+                    new = old - Ks_inv @ spin
+                    for part, limit in ((slice(0, n - 1), rolling * r.lam_warm),
+                                        (slice(n - 1, None), (2.0 / 3.0) * patch * r.mu * r.lam_warm)):
+                        norm = float(np.sqrt(new[part] @ new[part]))
+                        if norm > limit:
+                            new[part] = new[part] * (limit / norm)
+                    acc[id(r)] = new
+                    dA[n:] -= (new - old) @ RA
+                    dB[n:] += (new - old) @ RB
+                changes.append((seg[0].a, seg[0].b, dA, dB))
+            for a, b, dA, dB in changes:
+                X[a] += dA
+                X[b] += dB
 
 
 def _push_pose(alg: Algebra, bodies: Bodies, i: int, dX: Array) -> None:

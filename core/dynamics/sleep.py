@@ -9,7 +9,13 @@ Invariants and choices:
   ``scipy.sparse.csgraph.connected_components`` (a vectorised union-find), not a Python loop.
 * A dynamic body *rests* while ``|v| + |B| * radius < rest_speed`` (``|B|``, the norm of
   the angular-velocity bivector, bounds the speed of every point at distance ``radius`` from the
-  centre); its ``rest_time`` grows by dt per resting step and drops to zero otherwise.
+  centre); its ``rest_time`` grows by dt per resting step (up to the setting ``rest_time``).
+  A body that is only *stirring* (slower than four times the rest speed) loses dt of it per
+  step instead of restarting at zero; a faster one restarts at zero. One jittering body in a
+  settled pile (a few steps in ten just above the rest speed) otherwise restarted the rest time
+  of its whole island every few steps: a 4-D bin of 200 mixed bodies took 13.8-23 s or never
+  (of four seeds) to sleep after its kinetic energy fell below 1 % of its peak, and 4.3-6.7 s
+  with the leak. A body that keeps moving faster than the rest speed still never sleeps.
 * An island sleeps when every member has rested for ``rest_time``: its bodies get
   ``awake = False`` and zero velocity; integration and the solver skip them (zero inverse mass).
 * An island wakes, as a whole, when any member wakes: a contact with an awake dynamic body or a
@@ -37,6 +43,9 @@ from ..state.contacts import ContactSet
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
+
+# a body slower than _STIR times the rest speed is stirring: it loses rest time, it does not restart
+_STIR = 4.0
 
 
 def body_speeds(bodies: Bodies) -> Array:
@@ -182,10 +191,15 @@ def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt
 
     # 2. rest times of awake dynamic bodies
     awake_dyn = dynamic & bodies.awake
-    resting = body_speeds(bodies) < settings.rest_speed
+    speed = body_speeds(bodies)
+    resting = speed < settings.rest_speed
+    stirring = ~resting & (speed < _STIR * settings.rest_speed)
     rt = bodies.rest_time
-    rt[awake_dyn & resting] += dt
-    rt[awake_dyn & ~resting] = 0.0
+    grow = awake_dyn & resting
+    rt[grow] = np.minimum(rt[grow] + dt, settings.rest_time)
+    leak = awake_dyn & stirring
+    rt[leak] = np.maximum(rt[leak] - dt, 0.0)
+    rt[awake_dyn & ~resting & ~stirring] = 0.0
 
     # 3. islands: any awake member keeps (or makes) the whole island awake; a moving kinematic
     #    body touching an island keeps it from resting

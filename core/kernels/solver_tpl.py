@@ -352,10 +352,121 @@ def _shock(A, B, sA, sB, col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, rat
 
 
 @njit(cache=True)
+def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
+    """Rolling resistance and spin friction at single-point contacts that carried a load last step
+    (solver.py, _contact_couples: same rows, same order); changes X in place."""
+    per_man = np.zeros(nman, np.int64)
+    for q in range(A.shape[0]):
+        per_man[man[q]] += 1
+    nsel = 0
+    for q in range(A.shape[0]):
+        if per_man[man[q]] == 1 and load[q] > 0.0:
+            nsel += 1
+    if nsel == 0:
+        return
+    sel = np.empty(nsel, np.int64)
+    t = 0
+    for q in range(A.shape[0]):
+        if per_man[man[q]] == 1 and load[q] > 0.0:
+            sel[t] = q
+            t += 1
+    M = nsel
+    # planes of the contact frame: n ^ t_i (rolling), then t_i ^ t_j (spin)
+    first = np.empty(K, np.int64)
+    second = np.empty(K, np.int64)
+    c = 0
+    for i in range(T):
+        first[c] = 0
+        second[c] = 1 + i
+        c += 1
+    for i in range(T):
+        for j in range(i + 1, T):
+            first[c] = 1 + i
+            second[c] = 1 + j
+            c += 1
+    S = np.empty((M, K, K))
+    RA = np.empty((M, K, K))
+    RB = np.empty((M, K, K))
+    Ksi = np.empty((M, K, K))
+    Ks = np.empty((K, K))
+    Ki = np.empty((K, K))
+    for t in range(M):
+        q = sel[t]
+        for d in range(K):
+            f0 = first[d]
+            f1 = second[d]
+            for p in range(K):
+                p0 = PAIRS[p, 0]
+                p1 = PAIRS[p, 1]
+                S[t, d, p] = D[q, f0, p0] * D[q, f1, p1] - D[q, f0, p1] * D[q, f1, p0]
+        for d in range(K):
+            for p in range(K):
+                sa_ = 0.0
+                sb_ = 0.0
+                for u in range(K):
+                    sa_ += inv_I[A[q], p, u] * S[t, d, u]
+                    sb_ += inv_I[B[q], p, u] * S[t, d, u]
+                RA[t, d, p] = sa_
+                RB[t, d, p] = sb_
+        for d in range(K):
+            for e in range(K):
+                s_ = 0.0
+                for p in range(K):
+                    s_ += S[t, d, p] * (RA[t, e, p] + RB[t, e, p])
+                Ks[d, e] = s_
+        _invert(Ks, Ki)
+        for d in range(K):
+            for e in range(K):
+                Ksi[t, d, e] = Ki[d, e]
+    acc = np.zeros((M, K))
+    vs = np.empty(K)
+    new = np.empty(K)
+    for _ in range(npasses):
+        for t in range(M):
+            q = sel[t]
+            ia = A[q]
+            ib = B[q]
+            for d in range(K):
+                s_ = 0.0
+                for p in range(K):
+                    s_ += S[t, d, p] * (X[ib, N + p] - X[ia, N + p])
+                vs[d] = s_
+            for d in range(K):
+                s_ = 0.0
+                for e in range(K):
+                    s_ += Ksi[t, d, e] * vs[e]
+                new[d] = acc[t, d] - s_
+            # rolling part (the first T planes) and spin part, each on its own ball
+            for part in range(2):
+                lo = 0 if part == 0 else T
+                hi = T if part == 0 else K
+                lim = rolling * load[q] if part == 0 else (2.0 / 3.0) * patch * mu[q] * load[q]
+                nrm2 = 0.0
+                for d in range(lo, hi):
+                    nrm2 += new[d] * new[d]
+                nrm = np.sqrt(nrm2)
+                if nrm > lim:
+                    f = lim / nrm
+                    for d in range(lo, hi):
+                        new[d] *= f
+            for p in range(K):
+                s_ = 0.0
+                s2 = 0.0
+                for d in range(K):
+                    dd = new[d] - acc[t, d]
+                    s_ += dd * RA[t, d, p]
+                    s2 += dd * RB[t, d, p]
+                X[ia, N + p] -= s_
+                X[ib, N + p] += s2
+            for d in range(K):
+                acc[t, d] = new[d]
+
+
+@njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
           allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, shock_ratio,
-          shock_passes):
+          shock_passes, rolling, patch, couple_passes):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -526,19 +637,26 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     # the spring rests at the allowance less the mean static deflection of its manifold's
     # overlapping points under the warm-started load (solver.py, _load_deflection)
     nman = maxman + 1
+    # and less its tilt: the deepest overlap of those points less their mean (_tilt_spread)
     defl_sum = np.zeros(nman)
     defl_cnt = np.zeros(nman)
+    depth_sum = np.zeros(nman)
+    depth_max = np.zeros(nman)
     for q in range(M):
         if sep[q] < 0.0:
             defl_sum[man[q]] += lam_n[q] * unsplit_k[q] / stiff
             defl_cnt[man[q]] += 1.0
+            depth_sum[man[q]] += -sep[q]
+            if -sep[q] > depth_max[man[q]]:
+                depth_max[man[q]] = -sep[q]
     for q in range(M):
         sp = sep[q]
         if sp > 0.0:
             bias_on[q] = sp / dt
         else:
             mq = man[q]
-            rest_at = allowance - defl_sum[mq] / max(defl_cnt[mq], 1.0)
+            cnt = max(defl_cnt[mq], 1.0)
+            rest_at = allowance - defl_sum[mq] / cnt - (depth_max[mq] - depth_sum[mq] / cnt)
             push = rate * min(sp + rest_at, 0.0)
             if push < -cap:
                 push = -cap
@@ -555,6 +673,7 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
                     s6 += lam_t[q, r] * H[q, 1 + r, lo + t]
                 X[body, t] += s6
     max_n = lam_n.copy()
+    lam_warm = lam_n.copy()  # last step's load: the couples' limits
 
     xab = np.empty(W2)
     Vs = np.empty(N)
@@ -583,6 +702,8 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     if bias_free > 0:
         _shock(A, B, sA, sB, row_col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, shock_ratio,
                shock_passes)
+    if rolling > 0.0 or patch > 0.0:
+        _couples(A, B, D, inv_I, mu, lam_warm, man, nman, X, rolling, patch, couple_passes)
 
     # sliding, decided per manifold: all its friction at the limit and a slip left after the solve
     max_slip2 = np.zeros(nman)
@@ -684,4 +805,5 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 30.0, 1)
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 30.0, 1, 0.001,
+          0.01, 1)

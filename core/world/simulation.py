@@ -84,6 +84,15 @@ class Settings:
             a fast body is stopped at the surface instead of passing through).
         broadphase_margin: how much each body's bounding box is fattened, m.
 
+    Rolling and spin (a contact stands for a small patch, so it resists rotation a little)
+        rolling_resistance: coefficient of rolling resistance b, m: every contact resists rolling
+            (relative rotation in the planes that hold its normal) with a couple up to b lambda_n
+            (Beer and Johnston's rolling resistance), so balls roll to a stop. 0 turns it off.
+        contact_patch_radius: radius a of the patch, m: spin (rotation in the planes of the
+            tangent space) is resisted by a friction couple up to (2/3) mu lambda_n a (Johnson
+            1985, uniform pressure), so bodies stop spinning on point contacts. 0 turns it off.
+            No effect in 2-D, where the tangent space is a line.
+
     Bounce
         bounce_threshold: normal approach speeds below this do not bounce, m/s.
 
@@ -157,6 +166,8 @@ class Settings:
     speculative_margin: float = 0.1
     broadphase_margin: float = 0.05
     bounce_threshold: float = 1.0
+    rolling_resistance: float = 0.001
+    contact_patch_radius: float = 0.01
     sleep_enabled: bool = True
     rest_speed: float = 0.05
     rest_time: float = 0.5
@@ -165,7 +176,7 @@ class Settings:
         for name in ("dt", "spring_frequency", "spring_damping_ratio", "separation_speed_cap", "rest_time"):
             positive_scalar(f"settings.{name}", getattr(self, name))
         for name in ("overlap_allowance", "speculative_margin", "broadphase_margin", "bounce_threshold",
-                     "rest_speed"):
+                     "rest_speed", "rolling_resistance", "contact_patch_radius"):
             positive_scalar(f"settings.{name}", getattr(self, name), allow_zero=True)
         for name in ("substeps", "solver_passes"):
             v = getattr(self, name)
