@@ -2,7 +2,8 @@
 and figures it was chosen by, one variant per line.
 
 Run ``python -m ndrigid.bench.defaults`` (all groups, 2-D to 5-D) or pass group names
-(``stack``, ``bounce``, ``spin``, ``deep``, ``sleep``, ``piles``, ``margins``) and ``--dims``. Each line is
+(``stack``, ``bounce``, ``spin``, ``deep``, ``sleep``, ``heavy``, ``piles``, ``margins``) and
+``--dims``. Each line is
 one setting changed from the defaults (``defaults`` is none changed), with the figures of the
 group's scene:
 
@@ -19,6 +20,8 @@ group's scene:
   allowance plus 1 mm, and the largest speed it reaches (m/s);
 * ``sleep``: the stack of ten with sleeping on: time until every box sleeps (s; "never" within
   10 s);
+* ``heavy``: a 1 kg box (half-width 0.25 m) on a floor under a box 10, 100 and 1,000 times
+  heavier, after 10 s: the height error of each against the stacked half extents (mm);
 * ``piles``: the benchmark's 4-D bin of 200 balls and boxes (seed 0) with sleeping on: how long
   after its kinetic energy first fell below 1 % of its peak 90 % of the bodies sleep (s; "never"
   within 30 s), and the lowest point of any body then (mm; the floor is at 0);
@@ -178,6 +181,21 @@ def margins(dim: int, **changes: Any) -> str:
             f" narrowphase {spent['find_contacts'] / steps * 1e3:5.2f} ms")
 
 
+def heavy(dim: int, **changes: Any) -> str:
+    out = []
+    for ratio in (10.0, 100.0, 1000.0):
+        sim = Simulation(dim, settings=replace(Settings(), **changes))
+        up = _up(dim)
+        sim.add_body(HalfSpace(up, 0.0), kind="static")
+        light = sim.add_body(Box(np.full(dim, 0.25)), position=0.25 * up, mass=1.0)
+        top = sim.add_body(Box(np.full(dim, 0.25)), position=0.75 * up, mass=ratio)
+        for _ in range(600):
+            sim.step()
+        out.append(f"{ratio:5.0f}:1 {1e3 * (sim.position(light)[1] - 0.25):6.2f} / "
+                   f"{1e3 * (sim.position(top)[1] - 0.75):7.2f} mm")
+    return "light / heavy box against stacked half extents: " + ", ".join(out)
+
+
 def piles(dim: int, **changes: Any) -> str:
     from .scenes import build_pile
 
@@ -217,6 +235,7 @@ GROUPS: dict[str, tuple[Any, list[dict[str, Any]]]] = {
     "spin": (spin, [{}, {"gyroscopic": "explicit"}, {"gyroscopic": "none"}]),
     "deep": (deep, [{}, {"separation_speed_cap": 1.0}, {"separation_speed_cap": 10.0}]),
     "sleep": (sleep_time, [{}, {"rest_speed": 0.02}, {"rest_speed": 0.01}, {"rest_time": 1.0}]),
+    "heavy": (heavy, [{}]),
     "piles": (piles, [{}, {"rolling_resistance": 0.0}, {"rolling_resistance": 0.0005},
                       {"rolling_resistance": 0.002}, {"contact_patch_radius": 0.0},
                       {"contact_patch_radius": 0.005}, {"contact_patch_radius": 0.02}]),

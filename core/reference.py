@@ -89,11 +89,13 @@ from .dynamics.solver import (
     _COUPLE_PASSES,
     _MATCH_DISTANCE,
     _RELAX_EXTRA,
+    _RELAX_PUSH,
     _RELAX_TOL,
     _SHOCK_PASSES,
     _SHOCK_RATIO,
     _SLIP_SPEED,
     _STICK_TOL,
+    _TILT_DEADBAND,
 )
 from .dynamics.solver import HERTZ_CAP as _HERTZ_CAP
 from .errors import InputTypeError
@@ -1409,7 +1411,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         if r.sep <= 0.0:
             total, count, depth_total, deepest = defl.get(r.manifold, [0.0, 0.0, 0.0, 0.0])
             count = max(count, 1.0)
-            rest_at = settings.overlap_allowance - total / count - (deepest - depth_total / count)
+            tilt = max(deepest - depth_total / count - _TILT_DEADBAND, 0.0)
+            rest_at = settings.overlap_allowance - total / count - tilt
             r.bias_on = max(rate * min(r.sep + rest_at, 0.0), -settings.separation_speed_cap)
 
     # warm start: apply last step's accumulated impulses once
@@ -1484,7 +1487,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     # more bias-free passes while such a row still separates faster than the tolerance (push
     # velocity not yet taken out), at most _RELAX_EXTRA more
     extra = 0
-    while int(settings.bias_free_passes) and extra < _RELAX_EXTRA and push_left() > _RELAX_TOL:
+    deep = any(r.sep <= 0.0 and r.bias_on < -_RELAX_PUSH for r in prepared)
+    while deep and int(settings.bias_free_passes) and extra < _RELAX_EXTRA and push_left() > _RELAX_TOL:
         sweep(False)
         extra += 1
 

@@ -465,8 +465,8 @@ def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
 @njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
-          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, shock_ratio,
-          shock_passes, rolling, patch, couple_passes):
+          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, relax_push, shock_ratio,
+          shock_passes, rolling, patch, couple_passes, tilt_dead):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -649,6 +649,7 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
             depth_sum[man[q]] += -sep[q]
             if -sep[q] > depth_max[man[q]]:
                 depth_max[man[q]] = -sep[q]
+    deep = False
     for q in range(M):
         sp = sep[q]
         if sp > 0.0:
@@ -656,11 +657,14 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         else:
             mq = man[q]
             cnt = max(defl_cnt[mq], 1.0)
-            rest_at = allowance - defl_sum[mq] / cnt - (depth_max[mq] - depth_sum[mq] / cnt)
+            tilt = max(depth_max[mq] - depth_sum[mq] / cnt - tilt_dead, 0.0)
+            rest_at = allowance - defl_sum[mq] / cnt - tilt
             push = rate * min(sp + rest_at, 0.0)
             if push < -cap:
                 push = -cap
             bias_on[q] = push
+            if push < -relax_push:
+                deep = True
 
     # warm start: every row's accumulated impulses once, side A then side B
     for side in range(2):
@@ -690,7 +694,7 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     # more bias-free passes while a row holding an impulse still separates faster than relax_tol
     # (push velocity not yet taken out), at most relax_extra more
     extra = 0
-    while bias_free > 0 and extra < relax_extra and _push_left(A, B, G, lam_n, X) > relax_tol:
+    while deep and bias_free > 0 and extra < relax_extra and _push_left(A, B, G, lam_n, X) > relax_tol:
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
         extra += 1
@@ -805,5 +809,5 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 30.0, 1, 0.001,
-          0.01, 1)
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 30.0, 1, 0.001,
+          0.01, 1, 0.0005)
