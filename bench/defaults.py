@@ -197,12 +197,11 @@ def heavy(dim: int, **changes: Any) -> str:
 
 
 def piles(dim: int, **changes: Any) -> str:
-    from .scenes import build_pile
+    from .scenes import build_pile, lowest_point
 
     sim, _ = build_pile(dim, 200, 0)
     sim.settings = replace(sim.settings, sleep_enabled=True, **changes)
     dyn = sim.bodies.kind == sim.bodies.kind[sim.row(int(sim.handles[-1]))]
-    up = _up(dim)
     peak = 0.0
     t_low = None
     while sim.time < 30.0:
@@ -213,12 +212,7 @@ def piles(dim: int, **changes: Any) -> str:
             t_low = sim.time
         if t_low is not None and np.mean(~sim.bodies.awake[dyn]) >= 0.9:
             break
-    low = np.inf
-    for h in sim.handles:
-        if sim.kind(int(h)) == "dynamic":
-            R = sim.rotation(int(h))
-            p = sim.shape(int(h)).support((R.T @ -up)[None, :])[0]
-            low = min(low, float((sim.position(int(h)) + R @ p)[1]))
+    low = lowest_point(sim)
     asleep = float(np.mean(~sim.bodies.awake[dyn]))
     when = f"{sim.time - t_low:5.2f} s" if t_low is not None and asleep >= 0.9 else "never within 30 s"
     return f"90 % asleep {when} after the energy fell below 1 %; lowest point {low * 1e3:6.2f} mm"

@@ -42,6 +42,20 @@ def _bin_walls(sim: Simulation, half_width: float) -> None:
             sim.add_body(HalfSpace(-u, -half_width), kind="static")
 
 
+def lowest_point(sim: Simulation) -> float:
+    """The lowest point (along e_1) of all dynamic bodies, m, from the shapes' support points."""
+    up = np.zeros(sim.dim)
+    up[1] = 1.0
+    low = np.inf
+    for h in sim.handles:  # a check for tests and the defaults bench, not a hot path
+        if sim.kind(int(h)) != "dynamic":
+            continue
+        R = sim.rotation(int(h))
+        p = sim.shape(int(h)).support((R.T @ -up)[None, :])[0]
+        low = min(low, float((sim.position(int(h)) + R @ p)[1]))
+    return low
+
+
 def build_pile(dim: int, bodies: int, seed: int, boxes_only: bool = False) -> tuple[Simulation, int]:
     """Mixed boxes and balls (or boxes only) in a walled bin, sleeping off."""
     rng = np.random.default_rng(seed)

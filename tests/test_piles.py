@@ -18,21 +18,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from ndrigid.bench.scenes import build_pile
+from ndrigid.bench.scenes import lowest_point as _lowest_point
 from ndrigid.core import Simulation
-
-
-def _lowest_point(sim: Simulation) -> float:
-    """The lowest point (along e_1) of every dynamic body, m: the shapes' support points."""
-    up = np.zeros(sim.dim)
-    up[1] = 1.0
-    low = np.inf
-    for h in sim.handles:
-        if sim.kind(int(h)) != "dynamic":
-            continue
-        R = sim.rotation(int(h))
-        p = sim.shape(int(h)).support((R.T @ -up)[None, :])[0]
-        low = min(low, float((sim.position(int(h)) + R @ p)[1]))
-    return low
 
 
 def _settle(dim: int, count: int, seed: int, limit: float, boxes_only: bool = False

@@ -15,8 +15,9 @@ Invariants and choices:
   settled pile (a few steps in ten just above the rest speed) otherwise restarted the rest time
   of its whole island every few steps: a 4-D bin of 200 mixed bodies (four seeds) took 6.3 s,
   6.8 s, 23 s and more than 23 s to sleep after its kinetic energy fell below 1 % of its peak;
-  with the leak 4.3-6.7 s (measured before the tilt allowance of the solver, which made it
-  6.6-8.7 s). A body that keeps moving faster than the rest speed still never sleeps.
+  with the leak 4.3-6.7 s (measured before the solver's tilt allowance; with everything of this
+  release 5.9-10.9 s over seven seeds). A body that keeps moving faster than the rest speed
+  still never sleeps.
 * An island sleeps when every member has rested for ``rest_time``: its bodies get
   ``awake = False`` and zero velocity; integration and the solver skip them (zero inverse mass).
 * An island wakes, as a whole, when any member wakes: a contact with an awake dynamic body or a

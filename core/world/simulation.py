@@ -150,9 +150,10 @@ class Settings:
       bounce.
     * ``rolling_resistance`` 1 mm and ``contact_patch_radius`` 1 cm ("piles": the 4-D bin of 200
       balls and boxes, 90 % asleep this long after its energy fell below 1 % of its peak): with
-      both 6.58 s (6.6-8.7 s over four seeds); without rolling resistance 11.27 s, with 0.5 mm
-      8.28 s, with 2 mm 4.38 s (but 10.0 s for another seed); without the patch never within 30 s
-      (balls spin on their point contacts), 0.5 cm 10.47 s, 2 cm 5.88 s. 1 mm lies between the
+      both 6.55 s (seed 0; 5.9-10.9 s over seven seeds); without rolling resistance 10.65 s,
+      with 0.5 mm 8.78 s, with 2 mm 4.77 s (but 4.8-13.2 s over the seven seeds, no surer);
+      without the patch never within 30 s (balls spin on their point contacts), 0.5 cm 7.30 s,
+      2 cm 5.13 s. 1 mm lies between the
       rolling resistance of steel on steel and of steel on wood (handbook tables, from memory:
       about 0.5 and 1.5 mm); a 0.5 m ball rolling at 1 m/s rolls 36 m before it stops.
     * ``sleep_enabled`` True, ``rest_speed`` 0.05 m/s, ``rest_time`` 0.5 s: the stack falls
