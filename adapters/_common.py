@@ -72,8 +72,8 @@ class RigidBody:
     Args:
         shape: a shape from :mod:`ndrigid.core.geometry.shapes` in the simulation's dimension.
         kind: "dynamic", "kinematic" or "static".
-        density, mass: at most one (default density 1000 kg/m^n); ignored unless dynamic.
-        friction, static_friction, restitution: material coefficients (>= 0).
+        density, mass: at most one (default density 1000 kg/m^n); ignored (0 accepted) unless dynamic.
+        friction, static_friction, restitution: material coefficients (>= 0; restitution <= 1).
         layer, mask: collision filter bits (A and B collide iff A.layer & B.mask and B.layer & A.mask).
         linear_damping, angular_damping: rates >= 0, 1/s.
         sensor: report overlaps as contact events without a contact response.
@@ -109,9 +109,12 @@ class RigidBody:
             raise InputError("density, mass: expected at most one of them, got both")
         for name in ("density", "mass"):
             if getattr(self, name) is not None:
-                positive_scalar(name, getattr(self, name))
+                positive_scalar(name, getattr(self, name), allow_zero=self.kind != "dynamic")
         for name in ("friction", "restitution", "linear_damping", "angular_damping"):
             positive_scalar(name, getattr(self, name), allow_zero=True)
+        if self.restitution > 1.0:
+            raise InputError(f"restitution: expected a value in [0, 1] (above 1 every bounce gains "
+                             f"energy), got {self.restitution!r}")
 
     def body_arguments(self) -> dict[str, Any]:
         """Keyword arguments of ``Simulation.add_body`` for this description (shape excluded)."""

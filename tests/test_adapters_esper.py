@@ -402,6 +402,9 @@ def test_bad_components_raise_before_any_state_changes(world: str, dim: int) -> 
         RigidBody(Ball(dim, 0.5), kind="floating")
     with pytest.raises(InputError, match="no finite mass"):
         RigidBody(floor(dim), kind="dynamic")
+    with pytest.raises(InputError, match="restitution"):
+        RigidBody(Ball(dim, 0.5), restitution=1.2)
+    RigidBody(floor(dim), kind="static", mass=0.0)  # ignored for static bodies, so accepted
     good = d.create(RigidBody(Ball(dim, 0.5)), Transform(np.zeros(dim)), Velocity())
     wrong_dim = d.create(RigidBody(Ball(dim - 1, 0.5)), Transform(), Velocity())
     with pytest.raises(InputError, match=f"entity {wrong_dim}.*dimension {dim}"):

@@ -27,6 +27,14 @@ def test_readme_4d_example_runs_and_the_crate_lands() -> None:
     assert 0.3 < y < 3.0
 
 
+def test_readme_room_example_runs() -> None:
+    """The walls block: add_room returns one handle per face (a floor and two walls per other axis)."""
+    block = next(b for b in _python_blocks() if "add_room" in b)
+    ns: dict[str, object] = {}
+    exec(block, ns)  # noqa: S102 - the README's own example
+    assert len(ns["faces"]) == 7  # type: ignore[arg-type]
+
+
 def test_readme_names_the_two_setup_commands() -> None:
     text = README.read_text(encoding="utf-8")
     assert 'python3 -m pip install -e ".[test]" && python3 -m pytest -q' in text

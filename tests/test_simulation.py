@@ -114,6 +114,10 @@ def test_bad_input_raises_and_leaves_state_unchanged(dim: int, rng: np.random.Ge
         (lambda: sim.add_body(Ball(n + 1, 1.0)), "dimension"),
         (lambda: sim.add_body("ball"), "shape"),
         (lambda: sim.add_body(Ball(n, 1.0), friction=-0.1), "friction"),
+        (lambda: sim.add_body(Ball(n, 1.0), restitution=1.5), "restitution"),
+        (lambda: sim.add_room(np.zeros(n), np.r_[0.0, np.ones(n - 1)]), "lo < hi"),
+        (lambda: sim.add_room(-np.ones(n), np.ones(n), restitution=2.0), "restitution"),
+        (lambda: sim.add_room(-np.ones(n), np.ones(n + 1)), "hi"),
         (lambda: sim.add_body(Ball(n, 1.0), layer=-1), "layer"),
         (lambda: sim.add_body(HalfSpace(np.eye(n)[1], 0.0)), "HalfSpace"),
         (lambda: sim.step(0.0), "dt"),
@@ -173,3 +177,39 @@ def test_step_profile_names_every_stage(dim: int) -> None:
     assert list(sim.timings.stages) == names
     assert names[0] == "accelerate" and "advance_poses" in names
     assert sim.timings.total >= sum(sim.timings.stages.values()) * 0.999
+
+
+@dims()
+def test_static_bodies_accept_zero_mass_and_ignore_it(dim: int) -> None:
+    """mass / density are ignored for static and kinematic bodies (the add_body docstring), so 0
+    is accepted there; a static body has zero inverse mass whatever was given."""
+    sim = Simulation(dim)
+    h = sim.add_body(Box(np.ones(dim)), kind="static", mass=0.0)
+    k = sim.add_body(Ball(dim, 0.5), kind="kinematic", density=0.0, position=3.0 * np.eye(dim)[1])
+    assert sim.bodies.inv_mass[sim.row(h)] == 0.0 and sim.bodies.inv_mass[sim.row(k)] == 0.0
+
+
+@dims()
+def test_axis_aligned_half_spaces_and_a_room_keep_a_fast_ball_inside(dim: int) -> None:
+    """HalfSpace.below / above are the solids x[axis] <= at and x[axis] >= at (normal +-e_axis,
+    checked on points inside and outside: geometry); add_room closes the box lo <= x <= hi, and a
+    ball thrown fast in every direction with restitution 1 stays inside it (the walls are static
+    and speculative contacts stop it at the surface; geometry: inside means lo + r <= x <= hi - r,
+    within the allowance)."""
+    below, above = HalfSpace.below(dim, 0, 2.0), HalfSpace.above(dim, 0, 2.0)
+    inside, outside = np.r_[1.0, np.zeros(dim - 1)], np.r_[3.0, np.zeros(dim - 1)]
+    assert below.normal @ inside <= below.offset < below.normal @ outside
+    assert above.normal @ outside <= above.offset < above.normal @ inside
+    sim = Simulation(dim, settings=Settings(sleep_enabled=False))
+    lo, hi = -np.ones(dim) * 2.0, np.ones(dim) * 2.0
+    lo[1] = 0.0
+    walls = sim.add_room(lo, hi, ceiling=True, restitution=1.0, friction=0.0)
+    assert walls.size == 2 * dim and all(sim.kind(int(w)) == "static" for w in walls)
+    r = 0.3
+    ball = sim.add_body(Ball(dim, r), position=np.r_[0.0, 1.0, np.zeros(dim - 2)],
+                        velocity=np.linspace(8.0, -6.0, dim), restitution=1.0, friction=0.0)
+    allowance = sim.settings.overlap_allowance + 1e-3
+    for _ in range(240):
+        sim.step()
+        x = sim.position(ball)
+        assert np.all(x >= lo + r - allowance) and np.all(x <= hi - r + allowance)

@@ -985,6 +985,16 @@ class Compound(Shape):
 # ---------------------------------------------------------------------------------------------
 
 
+def _axis_vector(dim: Any, axis: Any, sign: float) -> Array:
+    """sign * e_axis in ``dim`` dimensions, with the checks of the axis-aligned half-space helpers."""
+    n = dimension("dim", dim)
+    if not isinstance(axis, (int, np.integer)) or isinstance(axis, bool) or not 0 <= int(axis) < n:
+        raise InputError(f"axis: expected an integer in [0, {n}), got {axis!r}")
+    u = np.zeros(n)
+    u[int(axis)] = sign
+    return u
+
+
 class HalfSpace(Shape):
     """The solid ``normal . x <= offset`` (static ground and walls).
 
@@ -1020,6 +1030,26 @@ class HalfSpace(Shape):
 
     def __repr__(self) -> str:
         return f"HalfSpace(normal={self.normal.tolist()!r}, offset={self.offset!r})"
+
+    @classmethod
+    def below(cls, dim: int, axis: int, at: float = 0.0) -> HalfSpace:
+        """The solid ``x[axis] <= at``: a floor (axis 1) whose surface is at height ``at``, or a
+        wall whose open side is ``x[axis] > at``. Outward normal +e_axis.
+
+        >>> HalfSpace.below(3, 1, 0.0)
+        HalfSpace(normal=[0.0, 1.0, 0.0], offset=0.0)
+        """
+        return cls(_axis_vector(dim, axis, 1.0), float(at))
+
+    @classmethod
+    def above(cls, dim: int, axis: int, at: float = 0.0) -> HalfSpace:
+        """The solid ``x[axis] >= at``: a ceiling (axis 1) or a wall whose open side is
+        ``x[axis] < at``. Outward normal -e_axis.
+
+        >>> HalfSpace.above(2, 0, 5.0)
+        HalfSpace(normal=[-1.0, 0.0], offset=-5.0)
+        """
+        return cls(_axis_vector(dim, axis, -1.0), -float(at))
 
     @property
     def bounding_radius(self) -> float:

@@ -27,6 +27,7 @@ from numpy.typing import NDArray
 from ..algebra import Algebra
 from ..dynamics import integrate as _integrate
 from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..geometry.shapes import HalfSpace
 from ..state.components import (
     ALL_LAYERS,
     DYNAMIC,
@@ -223,7 +224,7 @@ class Simulation:
     Example (4-D)::
 
         sim = Simulation(4)
-        floor = sim.add_body(HalfSpace(4, normal=[0, 1, 0, 0], offset=0.0), kind="static")
+        floor = sim.add_body(HalfSpace([0, 1, 0, 0], 0.0), kind="static")
         ball = sim.add_body(Ball(4, 0.5), position=[0, 2, 0, 0], density=1000.0)
         for _ in range(60):
             sim.step()
@@ -291,11 +292,12 @@ class Simulation:
             rotor: (2**(n-1),) unit rotor of the body (default identity).
             velocity: (n,) velocity of the centre of mass.
             angular_velocity: (k,) world-frame angular velocity bivector.
-            density / mass: at most one; default density 1000 kg/m^n. Ignored for static bodies.
+            density / mass: at most one; default density 1000 kg/m^n. Ignored (0 accepted) for
+                static and kinematic bodies; a dynamic body needs them > 0.
             kind: "dynamic", "kinematic" (moves by its velocity, never pushed) or "static".
-            friction, restitution: material coefficients (>= 0; combined per contact by the
-                geometric mean and the maximum respectively). ``friction`` is the kinetic
-                coefficient (sliding contacts).
+            friction, restitution: material coefficients (friction >= 0, restitution in [0, 1];
+                combined per contact by the geometric mean and the maximum respectively).
+                ``friction`` is the kinetic coefficient (sliding contacts).
             static_friction: coefficient while a contact point sticks (>= friction); None means
                 "same as friction".
             layer, mask: collision filter bits: A and B collide iff (A.layer & B.mask) and
@@ -342,12 +344,18 @@ class Simulation:
             "angular_velocity", angular_velocity, (alg.k,))
         if density is not None and mass is not None:
             raise InputError("density, mass: expected at most one of them, got both")
+        # static and kinematic bodies ignore mass and density (0 is accepted there), dynamic ones
+        # need them positive
+        dyn_kind = code == DYNAMIC
         if density is not None:
-            density = positive_scalar("density", density)
+            density = positive_scalar("density", density, allow_zero=not dyn_kind)
         if mass is not None:
-            mass = positive_scalar("mass", mass)
+            mass = positive_scalar("mass", mass, allow_zero=not dyn_kind)
         fr = positive_scalar("friction", friction, allow_zero=True)
         re = positive_scalar("restitution", restitution, allow_zero=True)
+        if re > 1.0:
+            raise InputError(f"restitution: expected a value in [0, 1] (above 1 every bounce gains "
+                             f"energy), got {re!r}")
         fs = fr if static_friction is None else positive_scalar("static_friction", static_friction,
                                                                 allow_zero=True)
         if fs < fr:
@@ -390,6 +398,42 @@ class Simulation:
             values["velocity"] = vel
             values["angular_velocity"] = om
         return values
+
+    def add_room(self, lo: Any, hi: Any, *, ceiling: bool = False, friction: float = 0.5,
+                 restitution: float = 0.0, layer: int = 1, mask: int = ALL_LAYERS) -> NDArray[np.int64]:
+        """Add static half-spaces that keep bodies inside the box ``lo <= x <= hi``: a floor at
+        ``lo[1]``, a wall on each side of every other axis and, with ``ceiling``, a ceiling at
+        ``hi[1]``. Returns their handles (floor first, then the walls by axis, low side first).
+
+        Args:
+            lo, hi: (n,) corners of the room, lo < hi on every axis.
+            ceiling: also close the room at the top.
+            friction, restitution, layer, mask: as :meth:`add_body`, for every face.
+
+        Bad input raises before anything is added.
+
+        >>> sim = Simulation(3)
+        >>> sim.add_room([-5, 0, -5], [5, 4, 5]).tolist()
+        [0, 1, 2, 3, 4]
+        """
+        n = self.dim
+        a = as_float_array("lo", lo, (n,))
+        b = as_float_array("hi", hi, (n,))
+        if not np.all(a < b):
+            raise InputError(f"lo, hi: expected lo < hi on every axis, got lo={a.tolist()}, hi={b.tolist()}")
+        faces = [HalfSpace.below(n, 1, float(a[1]))]
+        for axis in range(n):
+            if axis != 1:
+                faces += [HalfSpace.below(n, axis, float(a[axis])),
+                          HalfSpace.above(n, axis, float(b[axis]))]
+        if ceiling:
+            faces.append(HalfSpace.above(n, 1, float(b[1])))
+        material = {"kind": "static", "friction": friction, "restitution": restitution, "layer": layer,
+                    "mask": mask}
+        # every argument is checked on the first face before any is added
+        self._body_values(faces[0], None, None, None, None, None, None, "static", friction, restitution,
+                          layer, mask, 0.0, 0.0, False)
+        return np.array([self.add_body(f, **material) for f in faces], dtype=np.int64)
 
     def remove_body(self, handle: int) -> None:
         """Remove a body; bodies resting on it wake up."""
