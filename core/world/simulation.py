@@ -16,6 +16,7 @@ the simulation exactly as it was.
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -574,6 +575,97 @@ class Simulation:
 
     def is_awake(self, handle: int) -> bool:
         return bool(self.bodies.awake[self.row(handle)])
+
+    # -- mass, inertia and other per-body queries -----------------------------------------------
+
+    def mass(self, handle: int) -> float:
+        """Mass of a body, kg (inf for static and kinematic bodies, which nothing moves)."""
+        im = float(self.bodies.inv_mass[self.row(handle)])
+        return 1.0 / im if im > 0.0 else math.inf
+
+    def inverse_mass(self, handle: int) -> float:
+        """1 / mass, 1/kg (0 for static and kinematic bodies)."""
+        return float(self.bodies.inv_mass[self.row(handle)])
+
+    def inertia(self, handle: int, frame: str = "world") -> Array:
+        """Inertia of a body about its centre of mass, as a map on bivectors (L = I B).
+
+        ``frame="world"``: the (k, k) matrix in world axes; ``"body"``: the same map in the body's
+        own frame (constant); ``"principal"``: the (k,) plane moments of the principal frame
+        (kg m^2). Static and kinematic bodies have infinite inertia (inf entries).
+        """
+        if frame not in ("world", "body", "principal"):
+            raise InputError(f"frame: expected 'world', 'body' or 'principal', got {frame!r}")
+        b, row = self.bodies, self.row(handle)
+        inv = b.inv_inertia[row]
+        if not np.all(inv > 0.0):
+            k = self.alg.k
+            return np.full(k, math.inf) if frame == "principal" else np.full((k, k), math.inf)
+        moments = 1.0 / inv
+        if frame == "principal":
+            return moments.copy()
+        R = b.principal_rotor[row] if frame == "body" else self.alg.rotor_mul(b.rotor[row],
+                                                                               b.principal_rotor[row])
+        C = self.alg.rotor_to_compound(R)
+        return (C * moments[None, :]) @ C.T
+
+    def body_angular_velocity(self, handle: int) -> Array:
+        """(k,) angular velocity bivector in the body's own frame (~R B R)."""
+        row = self.row(handle)
+        R = self.bodies.rotor[row]
+        return self.alg.rotate_bivectors(self.alg.rotor_reverse(R), self.bodies.angular_velocity[row])
+
+    def body_angular_momentum(self, handle: int) -> Array:
+        """(k,) spin angular momentum about the centre of mass, in the body's own frame (I_body B_body),
+        kg m^2/s; zero for static and kinematic bodies."""
+        if self.inverse_mass(handle) == 0.0:
+            return np.zeros(self.alg.k)
+        return self.inertia(handle, "body") @ self.body_angular_velocity(handle)
+
+    def bounding_box(self, handle: int) -> tuple[Array, Array]:
+        """World axis-aligned bounding box (lo, hi) of a body, each (n,), from its shape's support
+        points (exact for boxes and polytopes; infinite where a half-space is unbounded)."""
+        row = self.row(handle)
+        R = self.bodies.rotation[row]
+        x = self.bodies.position[row]
+        n = self.dim
+        dirs = np.concatenate([np.eye(n), -np.eye(n)]) @ R  # rows: R^T (+-e_i), local directions
+        with np.errstate(invalid="ignore"):
+            pts = self.shape(handle).support(dirs)  # (2n, n) local support points
+            world = x + pts @ R.T
+        hi = np.where(np.isfinite(world[:n].diagonal()), world[:n].diagonal(), math.inf)
+        lo = np.where(np.isfinite(world[n:].diagonal()), world[n:].diagonal(), -math.inf)
+        return lo, hi
+
+    def user_data(self, handle: int) -> Any:
+        """What was given as ``user_data`` (or set by :meth:`set_user_data`), None by default."""
+        self.row(handle)
+        return self.info.user_data.get(int(handle))
+
+    def set_user_data(self, handle: int, value: Any) -> None:
+        """Attach anything to a body (None removes it)."""
+        self.row(handle)
+        if value is None:
+            self.info.user_data.pop(int(handle), None)
+        else:
+            self.info.user_data[int(handle)] = value
+
+    def wake(self, handle: int) -> None:
+        """Wake a sleeping body, and with it the island it slept in (no effect if awake)."""
+        row = self.row(handle)
+        if self.bodies.kind[row] == DYNAMIC:
+            self.bodies.awake[row] = True
+            self.bodies.rest_time[row] = 0.0
+
+    def put_to_sleep(self, handle: int) -> None:
+        """Put a dynamic body to sleep now (velocities zeroed). It wakes as any sleeper does: when
+        an awake body touches it, or a call such as :meth:`apply_impulse` disturbs it."""
+        row = self.row(handle)
+        if self.bodies.kind[row] != DYNAMIC:
+            raise InputError(f"handle: body {handle} is {self.kind(handle)}; only dynamic bodies sleep")
+        self.bodies.awake[row] = False
+        self.bodies.velocity[row] = 0.0
+        self.bodies.angular_velocity[row] = 0.0
 
     def set_pose(self, handle: int, position: Any = None, rotor: Any = None) -> None:
         """Teleport a body (position of its local origin and/or rotor); wakes it."""
