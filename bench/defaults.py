@@ -197,24 +197,13 @@ def heavy(dim: int, **changes: Any) -> str:
 
 
 def piles(dim: int, **changes: Any) -> str:
-    from .scenes import build_pile, lowest_point
+    from .scenes import build_pile, lowest_point, settle_asleep
 
     sim, _ = build_pile(dim, 200, 0)
     sim.settings = replace(sim.settings, sleep_enabled=True, **changes)
-    dyn = sim.bodies.kind == sim.bodies.kind[sim.row(int(sim.handles[-1]))]
-    peak = 0.0
-    t_low = None
-    while sim.time < 30.0:
-        sim.step()
-        ke = sim.kinetic_energy()
-        peak = max(peak, ke)
-        if t_low is None and sim.time > 0.5 and ke < 0.01 * peak:
-            t_low = sim.time
-        if t_low is not None and np.mean(~sim.bodies.awake[dyn]) >= 0.9:
-            break
+    t_low, t_asleep = settle_asleep(sim, 30.0)
     low = lowest_point(sim)
-    asleep = float(np.mean(~sim.bodies.awake[dyn]))
-    when = f"{sim.time - t_low:5.2f} s" if t_low is not None and asleep >= 0.9 else "never within 30 s"
+    when = f"{t_asleep - t_low:5.2f} s" if t_low is not None and t_asleep is not None else "never within 30 s"
     return f"90 % asleep {when} after the energy fell below 1 %; lowest point {low * 1e3:6.2f} mm"
 
 

@@ -56,6 +56,25 @@ def lowest_point(sim: Simulation) -> float:
     return low
 
 
+def settle_asleep(sim: Simulation, limit: float) -> tuple[float | None, float | None]:
+    """Step ``sim`` (sleeping on) until 90 % of its dynamic bodies sleep, or until ``limit`` s:
+    returns the time its kinetic energy first fell below 1 % of its peak (after 0.5 s) and the
+    time 90 % slept (None where it did not happen)."""
+    dyn = sim.bodies.kind == sim.bodies.kind[sim.row(int(sim.handles[-1]))]
+    peak = 0.0
+    t_low = t_asleep = None
+    while sim.time < limit:
+        sim.step()
+        ke = sim.kinetic_energy()
+        peak = max(peak, ke)
+        if t_low is None and sim.time > 0.5 and ke < 0.01 * peak:
+            t_low = sim.time
+        if t_low is not None and np.mean(~sim.bodies.awake[dyn]) >= 0.9:
+            t_asleep = sim.time
+            break
+    return t_low, t_asleep
+
+
 def build_pile(dim: int, bodies: int, seed: int, boxes_only: bool = False) -> tuple[Simulation, int]:
     """Mixed boxes and balls (or boxes only) in a walled bin, sleeping off."""
     rng = np.random.default_rng(seed)

@@ -15,31 +15,19 @@ a tilted box sat 7 mm deep (now the deepest point of a manifold settles at the a
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
-from ndrigid.bench.scenes import build_pile
+from ndrigid.bench.scenes import build_pile, settle_asleep
 from ndrigid.bench.scenes import lowest_point as _lowest_point
 from ndrigid.core import Simulation
 
 
 def _settle(dim: int, count: int, seed: int, limit: float, boxes_only: bool = False
             ) -> tuple[float | None, float | None, Simulation]:
-    """Step the bin with sleeping on until 90 % of its bodies sleep (or `limit` s): returns the
-    time the kinetic energy first fell below 1 % of its peak, the time 90 % slept, the sim."""
+    """The bin with sleeping on, stepped until 90 % of its bodies sleep (or `limit` s): the time
+    the kinetic energy first fell below 1 % of its peak, the time 90 % slept, the sim."""
     sim, _ = build_pile(dim, count, seed, boxes_only)
     sim = sim.with_settings(sleep_enabled=True)
-    dyn = sim.bodies.kind == sim.bodies.kind[sim.row(int(sim.handles[-1]))]
-    peak = 0.0
-    t_low = t_asleep = None
-    while sim.time < limit:
-        sim.step()
-        ke = sim.kinetic_energy()
-        peak = max(peak, ke)
-        if t_low is None and sim.time > 0.5 and ke < 0.01 * peak:
-            t_low = sim.time
-        if t_low is not None and np.mean(~sim.bodies.awake[dyn]) >= 0.9:
-            t_asleep = sim.time
-            break
+    t_low, t_asleep = settle_asleep(sim, limit)
     return t_low, t_asleep, sim
 
 
