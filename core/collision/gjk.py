@@ -68,6 +68,7 @@ __all__ = ["ball_convex", "convex_pair", "gjk_distance", "penetration"]
 
 _GJK_ITER = 64
 _EPA_ITER = 128
+_EPA_TIE = 1e-9  # coplanar facets: distances within this (relative to the scene scale), weights above -it
 _FACE_REL, _FACE_ABS = 0.05, 1e-4  # face over mixed (as in the box SAT)
 _A_OVER_B_REL, _A_OVER_B_ABS = 0.02, 1e-5
 _POINT_FLAG = np.int64(1) << np.int64(60)
@@ -166,9 +167,19 @@ def gjk_distance(Va: Array, Vb: Array) -> tuple[float, Array, Array, IntArray, I
         if used.sum() == n + 1:
             if float(v @ v) <= (1e-9 * scale) ** 2:
                 break  # a full simplex around the origin: overlap
-            # a nearly flat full simplex whose regularised answer misses the origin: drop its weakest point
-            used[int(np.argmin(lam))] = False
-            lam = lam / lam[used].sum()
+            # a nearly flat full simplex whose regularised answer misses the origin: its closest point
+            # lies in one of its facets (Caratheodory), so solve each facet and keep the nearest,
+            # with that facet's weights (dropping the weakest point and rescaling the old weights
+            # left witness points up to 0.1 m off: v and the weights no longer agreed; solving
+            # only the facet without the weakest point can miss the closest point)
+            best = (np.inf, 0, v, lam)
+            for j in range(n + 1):  # n + 1 facets, on this rare path only
+                vj, lj = _closest_on_simplex(np.delete(simplex.w, j, axis=0))
+                if float(vj @ vj) < best[0]:
+                    best = (float(vj @ vj), j, vj, lj)
+            _, j, v, lam = best
+            simplex.keep(np.arange(n + 1) != j)
+            used = lam > 0.0
         simplex.keep(used)
         lam = lam[used]
     dist = float(np.linalg.norm(v))
@@ -259,13 +270,24 @@ def penetration(Va: Array, Vb: Array, simplex_ia: IntArray, simplex_ib: IntArray
         facets = np.vstack([facets[~visible], new])
         normals = np.vstack([normals[~visible], nn])
         dists = np.concatenate([dists[~visible], nd])
-    f = int(np.argmin(dists))
+    # the nearest facet; a facet of D is often split into coplanar simplices at the same distance,
+    # and the origin's projection lies in one of them: take that one, or its weights (clipped) put
+    # the witness points off the contact (measured: 4-D box/polytope, a weight of -0.26 moved the
+    # point 0.13 m sideways and out of B)
+    f_best, lam_best, low_best = -1, np.zeros(n), -np.inf
+    for f in np.flatnonzero(dists <= float(np.min(dists)) + _EPA_TIE * scale).tolist():  # few ties
+        Y = Wv[facets[f]]
+        # barycentric weights of depth * normal on the facet (affine least squares)
+        Aff = np.vstack([Y.T, np.ones((1, n))])
+        lam = np.linalg.lstsq(Aff, np.concatenate([dists[f] * normals[f], [1.0]]), rcond=None)[0]
+        low = float(lam.min())
+        if low > low_best:
+            f_best, lam_best, low_best = f, lam, low
+        if low >= -_EPA_TIE:
+            break
+    f = f_best
     nrm, depth = normals[f], float(dists[f])
-    Y = Wv[facets[f]]
-    # barycentric weights of depth * normal on the facet (affine least squares)
-    Aff = np.vstack([Y.T, np.ones((1, n))])
-    lam = np.linalg.lstsq(Aff, np.concatenate([depth * nrm, [1.0]]), rcond=None)[0]
-    lam = np.clip(lam, 0.0, None)
+    lam = np.clip(lam_best, 0.0, None)
     lam /= lam.sum()
     sel = facets[f]
     return depth, nrm, lam, np.array(ia)[sel], np.array(ib)[sel]

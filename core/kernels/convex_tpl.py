@@ -43,6 +43,7 @@ CAP = min(1 << (N - 1), 8)
 MAXS = N + 1
 GJK_ITER = 64
 EPA_ITER = 128
+EPA_TIE = 1e-9
 VCAP = N + 1 + EPA_ITER + 1
 FACE_REL = 0.05
 FACE_ABS = 1e-4
@@ -341,6 +342,11 @@ def _gjk(Va, Vb, W, sia, sib, lam, v):
     idx = np.empty(MAXS, np.int64)
     bl = np.zeros(MAXS)
     p = np.empty(N)
+    W2 = np.empty((MAXS, N))
+    v2 = np.empty(N)
+    lam2 = np.empty(MAXS)
+    vbest = np.empty(N)
+    lbest = np.empty(MAXS)
     tiny = 1e-12 * scale
     for _ in range(GJK_ITER):
         vv = 0.0
@@ -378,17 +384,42 @@ def _gjk(Va, Vb, W, sia, sib, lam, v):
                 vv += v[t] * v[t]
             if vv <= (1e-9 * scale) ** 2:
                 break
+            # the closest point lies in one facet of the flat simplex: solve each, keep the nearest
+            # (gjk.gjk_distance)
+            best = np.inf
             jm = 0
-            for j in range(1, m):
-                if lam[j] < lam[jm]:
-                    jm = j
-            used[jm] = False
-            tot = 0.0
+            for jd in range(m):
+                k = 0
+                for j in range(m):
+                    if j != jd:
+                        for t in range(N):
+                            W2[k, t] = W[j, t]
+                        k += 1
+                _closest(W2, k, v2, lam2, G, A, b, idx, bl, p)
+                d2 = 0.0
+                for t in range(N):
+                    d2 += v2[t] * v2[t]
+                if d2 < best:
+                    best = d2
+                    jm = jd
+                    for t in range(N):
+                        vbest[t] = v2[t]
+                    for j in range(k):
+                        lbest[j] = lam2[j]
+            k = 0
             for j in range(m):
-                if used[j]:
-                    tot += lam[j]
+                if j != jm:
+                    for t in range(N):
+                        W[k, t] = W[j, t]
+                    sia[k] = sia[j]
+                    sib[k] = sib[j]
+                    k += 1
+            m = k
+            for t in range(N):
+                v[t] = vbest[t]
             for j in range(m):
-                lam[j] /= tot
+                lam[j] = lbest[j]
+                used[j] = lam[j] > 0.0
         k = 0
         for j in range(m):
             if used[j]:
@@ -648,27 +679,46 @@ def _epa(Va, Vb, sia, sib, m, lam_out, ia_out, ib_out, nrm_out):
             dists[c] = _facet_plane(W, facets[c], inner, normals[c], E, M, V)
             c += 1
         nf = c
-    f = 0
+    dmin = dists[0]
     for i in range(1, nf):
-        if dists[i] < dists[f]:
-            f = i
+        if dists[i] < dmin:
+            dmin = dists[i]
+    # the nearest facet; among coplanar ones at the same distance, the one holding the origin's
+    # projection (gjk.penetration says why)
+    Aff = np.empty((N + 1, N))
+    rhs = np.empty(N + 1)
+    x = np.empty(N)
+    best = np.empty(N)
+    f = -1
+    low_best = -np.inf
+    for g in range(nf):
+        if dists[g] > dmin + EPA_TIE * scale:
+            continue
+        for t in range(N):
+            for j in range(N):
+                Aff[t, j] = W[facets[g, j], t]
+            rhs[t] = dists[g] * normals[g, t]
+        for j in range(N):
+            Aff[N, j] = 1.0
+        rhs[N] = 1.0
+        _lstsq(Aff, rhs, N + 1, N, x)
+        low = x[0]
+        for j in range(1, N):
+            if x[j] < low:
+                low = x[j]
+        if low > low_best:
+            f = g
+            low_best = low
+            for j in range(N):
+                best[j] = x[j]
+        if low >= -EPA_TIE:
+            break
     depth = dists[f]
     for t in range(N):
         nrm_out[t] = normals[f, t]
-    Aff = np.empty((N + 1, N))
-    rhs = np.empty(N + 1)
-    for t in range(N):
-        for j in range(N):
-            Aff[t, j] = W[facets[f, j], t]
-        rhs[t] = depth * normals[f, t]
-    for j in range(N):
-        Aff[N, j] = 1.0
-    rhs[N] = 1.0
-    x = np.empty(N)
-    _lstsq(Aff, rhs, N + 1, N, x)
     tot = 0.0
     for j in range(N):
-        lam_out[j] = x[j] if x[j] > 0.0 else 0.0
+        lam_out[j] = best[j] if best[j] > 0.0 else 0.0
         tot += lam_out[j]
     for j in range(N):
         lam_out[j] /= tot
