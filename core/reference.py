@@ -1299,6 +1299,8 @@ def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
     salt = _to_int64(salt)
     if active:
         _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings, salt)
+    contacts.normal_impulse = np.array(lam_n, dtype=np.float64).reshape(M)
+    contacts.tangent_impulse = np.array(lam_t, dtype=np.float64).reshape(M, n)
     order = sorted(range(M), key=lambda i: int(contacts.key[i]))
     pair_sorted = [pair[i] for i in order]
     caches["solver"] = {
@@ -1732,12 +1734,12 @@ def _stage_find_pairs(sim: Any, dt: float) -> None:
 
 
 def _stage_find_contacts(sim: Any, dt: float) -> None:
-    from .world.stages import _update_events
+    from .world.stages import note_touching
 
     contacts, touching, sensors = collide_reference(sim.alg, sim.bodies, sim.pairs, sim.info.shapes,
                                                     sim.settings, sim.caches, dt)
     sim.contacts = contacts
-    _update_events(sim, touching, sensors)
+    note_touching(sim, touching, sensors)
 
 
 def _stage_solve(sim: Any, dt: float) -> None:
@@ -1759,7 +1761,8 @@ _REFERENCE_STAGES = {
 
 def use_reference_stages(sim: Any) -> None:
     """Replace a Simulation's integrate, broadphase, narrowphase and solver stages by the scalar
-    reference versions, in place (stage names and order unchanged; other stages are kept).
+    reference versions, in place (stage names and order unchanged; other stages, such as the
+    contact events of ``report_contacts`` and the islands, are kept).
 
     Raises:
         InputTypeError: ``sim`` is not a Simulation (it has no ``stages`` list).

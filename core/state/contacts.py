@@ -68,6 +68,9 @@ class ContactSet:
     manifold: (M,) index of the contact's pair in this step's list of touching pairs.
     key: (M,) int64 persistent key of the point: hash of (handle A, handle B, feature).
     friction, restitution: (M,) combined material coefficients.
+    normal_impulse: (M,) normal impulse of each point in the step's solve, N s (None until the
+        solver ran; the impulse pushes B along ``normal`` and A against it).
+    tangent_impulse: (M, n) friction impulse on B of each point (world vector, -that on A), N s.
     """
 
     body_a: IntArray
@@ -80,6 +83,8 @@ class ContactSet:
     key: IntArray
     friction: Array
     restitution: Array
+    normal_impulse: Array | None = None
+    tangent_impulse: Array | None = None
 
     @property
     def count(self) -> int:

@@ -30,7 +30,7 @@ from numpy.typing import NDArray
 from ..collision import broadphase as bp
 from ..collision import narrowphase as nph
 from ..errors import InputError, InputTypeError, as_float_array
-from ..state.components import ALL_LAYERS, SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE, SHAPE_POLYTOPE
+from ..state.components import ALL_LAYERS, SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE, SHAPE_POLYTOPE, STATIC
 
 if TYPE_CHECKING:
     from .simulation import Simulation
@@ -223,7 +223,7 @@ def _ray_hits(sim: Simulation, origin: Any, direction: Any, max_distance: Any,
     store = _store(sim)
     c, _, _ = nph.colliders_of_rows(sim.bodies, store, rows)
     t, nrm = _ray_colliders(c, store, o, d)
-    ok = np.flatnonzero(t <= tmax)
+    ok = np.flatnonzero(np.isfinite(t) & (t <= tmax))  # a miss is t = inf, also when tmax is
     # first entry per body (compound pieces): sort by (owner, t), keep the first of each owner
     order = ok[np.lexsort((t[ok], c.owner[ok]))]
     first = np.ones(order.size, dtype=bool)
@@ -374,3 +374,145 @@ def bodies_overlapping_shape(sim: Simulation, shape: Any, position: Any, rotor: 
         store.forget_since(mark)  # the query shape is not kept in the simulation's store
     hit = mp.depth >= 0.0
     return _handles_of(sim, c.owner[ib[mp.pair[hit]]])
+
+
+# -- contacts of the last step ----------------------------------------------------------------------
+
+
+class BodyContacts(NamedTuple):
+    """The points where one body touched others in the last step (m points, one row each).
+
+    other: (m,) handles of the bodies touched.
+    point: (m, n) world contact points.
+    normal: (m, n) unit normals from the queried body toward the other.
+    depth: (m,) overlap (> 0), or minus the gap of a point the bodies reached within the step.
+    normal_impulse: (m,) normal impulse of the point in the step, N s (>= 0).
+    impulse: (m, n) total impulse (normal and friction) the point applied to the queried body, N s.
+    """
+
+    other: IntArray
+    point: Array
+    normal: Array
+    depth: Array
+    normal_impulse: Array
+    impulse: Array
+
+
+def _touching_rows(sim: Simulation) -> tuple[Any, NDArray[np.bool_], Array, Array]:
+    """The step's contact set, a mask of its touching rows (depth >= 0 or an impulse), and the rows'
+    normal and friction impulses (zeros where the solver has not run)."""
+    c = sim.contacts
+    n = sim.dim
+    if c is None or not c.count:
+        return None, np.zeros(0, bool), np.zeros(0), np.zeros((0, n))
+    lam_n = np.zeros(c.count) if c.normal_impulse is None else c.normal_impulse
+    lam_t = np.zeros((c.count, n)) if c.tangent_impulse is None else c.tangent_impulse
+    return c, (c.depth >= 0.0) | (lam_n > 0.0), lam_n, lam_t
+
+
+_RECORD = ("ha", "hb", "point", "normal", "depth", "lam_n", "lam_t")
+
+
+def _live_rows(sim: Simulation, handles: IntArray) -> IntArray:
+    """Rows of handles, -1 for removed ones."""
+    h2r = np.asarray(sim.info.handle_to_row, dtype=np.int64)
+    return np.where(handles < h2r.size, h2r[np.minimum(handles, h2r.size - 1)], -1)
+
+
+def _resting_record(sim: Simulation) -> dict[str, Any] | None:
+    """The kept touching points of sleeping bodies whose two bodies still both rest (asleep or
+    static) and are live; None when there are none."""
+    rec = sim.caches.get("asleep_rows")
+    if rec is None or not rec["ha"].size:
+        return None
+    b = sim.bodies
+    ra, rb = _live_rows(sim, rec["ha"]), _live_rows(sim, rec["hb"])
+    live = (ra >= 0) & (rb >= 0)
+    moving = (b.kind != STATIC) & b.awake
+    ok = live.copy()
+    ok[live] = ~moving[ra[live]] & ~moving[rb[live]]
+    return {f: v[ok] for f, v in rec.items()}
+
+
+def note_sleepers(sim: Simulation, was_awake: NDArray[np.bool_]) -> None:
+    """Keep the touching points of the bodies that fell asleep in this step (handle-based), so that
+    the contact queries still show what a sleeping body rests on: its island is not collided or
+    solved while it sleeps."""
+    b = sim.bodies
+    if was_awake.shape != b.awake.shape:
+        return
+    fell = was_awake & ~b.awake
+    if not np.any(fell):
+        return
+    c, touching, lam_n, lam_t = _touching_rows(sim)
+    old = _resting_record(sim)
+    h = b.handle.astype(np.int64)
+    if old is not None:  # the bodies that fell asleep now get their rows afresh
+        gone = fell[_live_rows(sim, old["ha"])] | fell[_live_rows(sim, old["hb"])]
+        old = {f: v[~gone] for f, v in old.items()}
+    parts = [] if old is None else [old]
+    if c is not None:
+        rows = np.nonzero(touching & (fell[c.body_a] | fell[c.body_b]))[0]
+        parts.append({"ha": h[c.body_a[rows]], "hb": h[c.body_b[rows]], "point": c.point[rows],
+                      "normal": c.normal[rows], "depth": c.depth[rows], "lam_n": lam_n[rows],
+                      "lam_t": lam_t[rows]})
+    if parts:
+        sim.caches["asleep_rows"] = {f: np.concatenate([p[f] for p in parts]) for f in _RECORD}
+
+
+def _all_touching(sim: Simulation) -> dict[str, Any]:
+    """The last step's touching points as handle-based arrays: the solved rows, and the kept rows
+    of resting pairs of sleeping bodies."""
+    n = sim.dim
+    c, touching, lam_n, lam_t = _touching_rows(sim)
+    parts = []
+    if c is not None:
+        b = sim.bodies
+        moving = (b.kind != STATIC) & b.awake
+        # rows of pairs that now both rest are in the record (they fell asleep in this step)
+        rows = np.nonzero(touching & (moving[c.body_a] | moving[c.body_b]))[0]
+        h = b.handle.astype(np.int64)
+        parts.append({"ha": h[c.body_a[rows]], "hb": h[c.body_b[rows]], "point": c.point[rows],
+                      "normal": c.normal[rows], "depth": c.depth[rows], "lam_n": lam_n[rows],
+                      "lam_t": lam_t[rows]})
+    rec = _resting_record(sim)
+    if rec is not None:
+        parts.append(rec)
+    if not parts:
+        z = np.zeros(0, np.int64)
+        return {"ha": z, "hb": z, "point": np.zeros((0, n)), "normal": np.zeros((0, n)), "depth": np.zeros(0),
+                "lam_n": np.zeros(0), "lam_t": np.zeros((0, n))}
+    if len(parts) == 1:
+        return parts[0]
+    return {f: np.concatenate([p[f] for p in parts]) for f in _RECORD}
+
+
+def contacts_of(sim: Simulation, handle: int) -> BodyContacts:
+    """Every touching point of one body in the last step (see :class:`BodyContacts`); a sleeping
+    body reports the points it rested on when it fell asleep."""
+    sim.row(handle)
+    h = int(handle)
+    t = _all_touching(sim)
+    as_a, as_b = t["ha"] == h, t["hb"] == h
+    sel = as_a | as_b
+    sign = np.where(as_b[sel], 1.0, -1.0)[:, None]  # a row's impulse acts on B, minus it on A
+    other = np.where(as_b[sel], t["ha"][sel], t["hb"][sel])
+    total = t["lam_n"][sel, None] * t["normal"][sel] + t["lam_t"][sel]
+    return BodyContacts(other, t["point"][sel].copy(), -sign * t["normal"][sel], t["depth"][sel].copy(),
+                        t["lam_n"][sel].copy(), sign * total)
+
+
+def impulse_between(sim: Simulation, handle_a: int, handle_b: int) -> Array:
+    """(n,) total impulse that body A applied to body B in the last step, N s (normal and friction,
+    summed over their touching points; minus it acted on A). Zeros when they did not touch."""
+    sim.row(handle_a)
+    sim.row(handle_b)
+    ha, hb = int(handle_a), int(handle_b)
+    if ha == hb:
+        raise InputError(f"impulse_between: handle_a and handle_b are both {ha}; expected two different "
+                         "bodies")
+    t = _all_touching(sim)
+    fwd = (t["ha"] == ha) & (t["hb"] == hb)
+    rev = (t["ha"] == hb) & (t["hb"] == ha)
+    total = t["lam_n"][:, None] * t["normal"] + t["lam_t"]
+    return total[fwd].sum(axis=0) - total[rev].sum(axis=0)

@@ -7,8 +7,10 @@ arrays the earlier stages made), each timed into :attr:`Simulation.timings`:
 2. ``find_pairs``         -- broadphase: bounding boxes and candidate pairs;
 3. ``find_contacts``              -- narrowphase: contact manifolds with feature ids;
 4. ``solve_impulses``       -- sequential impulses with friction, restitution, warm starting;
-5. ``advance_poses``  -- positions and rotors from the new velocities;
-6. ``settle_islands``         -- islands, sleeping and waking.
+5. ``report_contacts``      -- begin and end contact events, with points, normal, approach speed and
+   impulse (:class:`~ndrigid.core.world.stages.ContactEvent`);
+6. ``advance_poses``  -- positions and rotors from the new velocities;
+7. ``settle_islands``         -- islands, sleeping and waking.
 
 Every public method validates its input before touching any state, so a call that raises leaves
 the simulation exactly as it was.
@@ -270,6 +272,7 @@ class Simulation:
         *,
         position: Any = None,
         rotor: Any = None,
+        rotation: Any = None,
         velocity: Any = None,
         angular_velocity: Any = None,
         density: float | None = None,
@@ -291,6 +294,7 @@ class Simulation:
             shape: a shape from :mod:`ndrigid.core.shapes` of the simulation's dimension.
             position: (n,) world position of the shape's local origin (default 0).
             rotor: (2**(n-1),) unit rotor of the body (default identity).
+            rotation: (n, n) rotation matrix instead of ``rotor`` (at most one of the two).
             velocity: (n,) velocity of the centre of mass.
             angular_velocity: (k,) world-frame angular velocity bivector.
             density / mass: at most one; default density 1000 kg/m^n. Ignored (0 accepted) for
@@ -307,6 +311,7 @@ class Simulation:
             sensor: report overlaps as events, produce no contact response.
         """
         alg, n = self.alg, self.dim
+        rotor = self._rotor_of(rotor, rotation)
         row_values = self._body_values(shape, position, rotor, velocity, angular_velocity, density, mass,
                                        kind, friction, restitution, layer, mask, linear_damping,
                                        angular_damping, sensor, static_friction)
@@ -663,13 +668,34 @@ class Simulation:
         row = self.row(handle)
         if self.bodies.kind[row] != DYNAMIC:
             raise InputError(f"handle: body {handle} is {self.kind(handle)}; only dynamic bodies sleep")
+        was_awake = self.bodies.awake.copy()
         self.bodies.awake[row] = False
         self.bodies.velocity[row] = 0.0
         self.bodies.angular_velocity[row] = 0.0
+        queries.note_sleepers(self, was_awake)  # the contact queries keep what it rests on
 
-    def set_pose(self, handle: int, position: Any = None, rotor: Any = None) -> None:
-        """Teleport a body (position of its local origin and/or rotor); wakes it."""
+    def _rotor_of(self, rotor: Any, rotation: Any) -> Any:
+        """The public pose convention: a rotor, or a rotation matrix under ``rotation`` (validated,
+        converted to its rotor); never both."""
+        if rotation is None:
+            return rotor
+        if rotor is not None:
+            raise InputError("rotor, rotation: expected at most one of a rotor and a rotation matrix, "
+                             "got both")
+        n = self.dim
+        M = as_float_array("rotation", rotation, (n, n))
+        if M.shape != (n, n):
+            raise InputError(f"rotation: expected shape ({n}, {n}), got {M.shape}")
+        try:
+            return self.alg.matrix_to_rotor(M)
+        except InputError as exc:
+            raise InputError(f"rotation: {str(exc).split(': ', 1)[1]}") from None
+
+    def set_pose(self, handle: int, position: Any = None, rotor: Any = None, *, rotation: Any = None) -> None:
+        """Teleport a body (position of its local origin and/or rotor, or a rotation matrix under
+        ``rotation``); wakes it."""
         r = self.row(handle)
+        rotor = self._rotor_of(rotor, rotation)
         pos = None if position is None else as_float_array("position", position, (self.dim,))
         R = None if rotor is None else self.alg.check_rotor(rotor, "rotor")
         if R is not None and self.alg.rotor_norm_error(R) > 1e-14:
@@ -854,9 +880,21 @@ class Simulation:
         """Handles of the bodies whose bounding box overlaps the world box [lo, hi]."""
         return queries.bodies_overlapping_box(self, lo, hi, layer_mask)
 
+    def contacts_of(self, handle: int) -> Any:
+        """The points where a body touched others in the last step, as a ``queries.BodyContacts``
+        of arrays (other handles, points, normals toward the other, depths, normal impulses and
+        the total impulse on this body of each point)."""
+        return queries.contacts_of(self, handle)
+
+    def impulse_between(self, handle_a: int, handle_b: int) -> Array:
+        """(n,) total impulse body A applied to body B in the last step, N s (zeros if apart)."""
+        return queries.impulse_between(self, handle_a, handle_b)
+
     def bodies_overlapping_shape(self, shape: Any, position: Any, rotor: Any = None,
-                                 layer_mask: Any = ALL_LAYERS) -> NDArray[np.int64]:
-        """Handles of the bodies whose solid overlaps ``shape`` placed at (position, rotor)."""
+                                 layer_mask: Any = ALL_LAYERS, *, rotation: Any = None) -> NDArray[np.int64]:
+        """Handles of the bodies whose solid overlaps ``shape`` placed at (position, rotor), or at
+        (position, rotation matrix) under the keyword ``rotation``."""
+        rotor = self._rotor_of(rotor, rotation)
         return queries.bodies_overlapping_shape(self, shape, position, rotor, layer_mask)
 
 

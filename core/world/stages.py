@@ -5,34 +5,61 @@ what later stages need on the simulation (``sim.pairs``, ``sim.contacts``, ``sim
 Caches that live across steps (the pair cache, warm-start impulses, sleep islands) are kept in
 ``sim.caches`` under the name of the system that owns them.
 
-Contact events: a pair *touches* in a step when one of its points has depth >= 0. A ``begin``
-event is reported for a pair that touches now and did not in the previous step, an ``end`` event
-for one that no longer touches (or whose body was removed). Sensor pairs report the same events
-but produce no contacts.
+Contact events: a pair *meets* in a step when one of its points has depth >= 0 or takes a
+normal impulse in the solve (a speculative point that the bodies reach within the step: a fast
+body is stopped, or bounces, before it overlaps). A ``begin`` event is reported, after the solve,
+for a pair that meets now and did not in the previous step, with the pair's touching points, its
+normal, the approach speed before the solve and the normal impulse of the impact (a pair that
+first meets only through speculative points is reported one step later, with both steps'
+impulses: :func:`report_contacts`); an ``end`` event
+for one that no longer meets (or whose body was removed). Sensor pairs report the same events
+(touching = overlapping, no details) but produce no contacts.
 """
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, NamedTuple
+from typing import TYPE_CHECKING, Any, NamedTuple
 
 import numpy as np
 
 from .. import kernels as _kernels
+from ..algebra import skew
 from ..collision import broadphase, narrowphase
 from ..dynamics import integrate as _integrate
 from ..dynamics import sleep, solver
+from . import queries as _queries
 
 if TYPE_CHECKING:
+    from ..state.contacts import ContactSet
     from .simulation import Simulation, Stage
 
 
+_NO_POINTS = np.zeros((0, 0))
+_NO_POINTS.setflags(write=False)
+
+
 class ContactEvent(NamedTuple):
-    """A pair of bodies that started ("begin") or stopped ("end") touching in the last step."""
+    """A pair of bodies that started ("begin") or stopped ("end") touching in the last step.
+
+    ``handle_a < handle_b``. A begin event of a non-sensor pair also carries what sound, damage
+    and effects need (an end event, or a sensor's, carries the defaults):
+
+    points: (P, n) world points where the pair touches (midway between the surfaces).
+    normal: (n,) unit contact normal, from body A toward body B (None when there are no points).
+    approach_speed: how fast the bodies closed along the normal before the step's solve, m/s
+        (the largest over the points; 0 when they were not closing).
+    impulse: total normal impulse between the bodies in the step, N s (m v for a body of mass m
+        that hits a static body at speed v and stops).
+    """
 
     kind: str
     handle_a: int
     handle_b: int
     sensor: bool
+    points: np.ndarray = _NO_POINTS
+    normal: np.ndarray | None = None
+    approach_speed: float = 0.0
+    impulse: float = 0.0
 
 
 def _stage_find_pairs(sim: Simulation, dt: float) -> None:
@@ -43,7 +70,7 @@ def _stage_find_contacts(sim: Simulation, dt: float) -> None:
     contacts, touching, sensor_touching = narrowphase.find_contacts(
         sim.alg, sim.bodies, sim.pairs, sim.info.shapes, sim.settings, sim.caches, dt)
     sim.contacts = contacts
-    _update_events(sim, touching, sensor_touching)
+    note_touching(sim, touching, sensor_touching)
 
 
 def _stage_solve(sim: Simulation, dt: float) -> None:
@@ -51,7 +78,9 @@ def _stage_solve(sim: Simulation, dt: float) -> None:
 
 
 def _stage_sleep(sim: Simulation, dt: float) -> None:
+    was_awake = sim.bodies.awake.copy()
     sleep.settle_islands(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    _queries.note_sleepers(sim, was_awake)
 
 
 def _touch_keys(sim: Simulation, pairs: np.ndarray, sensor: bool) -> np.ndarray:
@@ -65,7 +94,7 @@ def _touch_keys(sim: Simulation, pairs: np.ndarray, sensor: bool) -> np.ndarray:
 
 
 def _emit(sim: Simulation, kind: str, keys: np.ndarray) -> None:
-    """Append one event per key (keys sorted: events come in handle order)."""
+    """Append one detail-free event per key (keys sorted: events come in handle order)."""
     if not len(keys):
         return
     lo = (keys >> np.int64(32)).tolist()
@@ -74,15 +103,124 @@ def _emit(sim: Simulation, kind: str, keys: np.ndarray) -> None:
     sim.events.extend(ContactEvent(kind, a, b, s) for a, b, s in zip(lo, hi, sen, strict=True))
 
 
-def _update_events(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
-    """Diff this step's touching handle pairs (T, 2) against the last step's, as sorted int64 keys
-    (``np.setdiff1d`` on sorted unique arrays; no Python set of pairs)."""
-    now = np.unique(np.concatenate([_touch_keys(sim, touching, False),
-                                    _touch_keys(sim, sensor_touching, True)]))
+def _row_keys(sim: Simulation, c: ContactSet, rows: np.ndarray) -> np.ndarray:
+    return _touch_keys(sim, np.stack([c.body_a[rows], c.body_b[rows]], axis=1), False)
+
+
+def _normal_speeds(sim: Simulation, c: ContactSet, rows: np.ndarray) -> np.ndarray:
+    """Relative normal speed (B's point velocity less A's, along the normal) of the given rows;
+    negative when the bodies close. The point velocity is v + W r (design.md)."""
+    b = sim.bodies
+    n = sim.alg.n
+    p = c.point[rows]
+    rel = np.zeros_like(p)
+    for side, sign in ((c.body_a[rows], -1.0), (c.body_b[rows], 1.0)):
+        W = skew(b.angular_velocity[side], n)
+        rel += sign * (b.velocity[side] + np.einsum("mij,mj->mi", W, p - b.position[side]))
+    return np.einsum("mi,mi->m", rel, c.normal[rows])
+
+
+def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
+    """Keep the narrowphase's overlapping pairs (T, 2) and (S, 2) for :func:`report_contacts`,
+    with the normal speeds before the solve of the rows of pairs that did not meet last step
+    (only they can begin)."""
+    c = sim.contacts
     before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
-    _emit(sim, "begin", np.setdiff1d(now, before, assume_unique=True))
+    speed = np.zeros(0 if c is None else c.count)
+    if c is not None and c.count:
+        new = ~np.isin(_row_keys(sim, c, np.arange(c.count)), before)
+        if np.any(new):
+            rows = np.nonzero(new)[0]
+            speed[rows] = _normal_speeds(sim, c, rows)
+    sim.caches["touch_now"] = (touching, sensor_touching, speed)
+
+
+def report_contacts(sim: Simulation) -> None:
+    """Diff the pairs that meet in this step against the last step's (sorted int64 keys,
+    ``np.setdiff1d``; no Python set of pairs) and append the begin and end events.
+
+    A pair that first meets only through speculative points (the solver stopped or turned a body
+    before it overlapped) is held for one step, and its begin event, reported in the next step,
+    adds the normal impulses of both steps: a speculative contact lets a fast body close the gap at
+    gap/dt and takes the rest of the stop one step later (solver.py, step 5), so the first step
+    alone carries only part of the impact (0 to 100 % of m v, by where the gap fell). A bounce off
+    a speculative point carries its whole impulse in the first step; its end event then follows
+    the begin event in the same step.
+    """
+    c = sim.contacts
+    empty = np.zeros((0, 2), np.int64)
+    touching, sensor_touching, speed = sim.caches.pop("touch_now", (empty, empty, np.zeros(0)))
+    met = np.zeros(0, np.int64)
+    rows = np.zeros(0, np.int64)
+    if c is not None and c.count:
+        took = np.zeros(c.count, bool) if c.normal_impulse is None else c.normal_impulse > 0.0
+        rows = np.nonzero(took | (c.depth >= 0.0))[0]
+        speed = speed[rows] if len(speed) == c.count else np.zeros(len(rows))
+        sp = took[rows] & (c.depth[rows] < 0.0)  # speculative points the bodies reached
+        met = np.unique(_row_keys(sim, c, rows[sp]))
+    overlapping = np.unique(np.concatenate([_touch_keys(sim, touching, False),
+                                            _touch_keys(sim, sensor_touching, True)]))
+    now = np.union1d(overlapping, met)
+    before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
+    held: dict[int, Any] = sim.caches.pop("held_begins", {})
+    fresh = np.setdiff1d(now, before, assume_unique=True)
+    sensor = (fresh & np.int64(1)).astype(bool)
+    # a new pair that meets only through speculative points waits a step (see above)
+    wait = ~sensor & ~np.isin(fresh, overlapping, assume_unique=True)
+    asked = np.concatenate([fresh[~sensor], np.array(sorted(held), dtype=np.int64)])
+    details = _begin_details(sim, asked, rows, speed)
+    for key in fresh[~sensor & ~wait].tolist():
+        sim.events.append(_begin_event(key, details.get(key)))
+    for key in sorted(held):  # last step's held pairs: both steps' impulses
+        first, later = held[key], details.get(key)
+        if first is None:
+            first = later
+        elif later is not None:
+            first = (later[0], later[1], first[2], first[3] + later[3])
+        sim.events.append(_begin_event(key, first))
+    _emit(sim, "begin", fresh[sensor])
     _emit(sim, "end", np.setdiff1d(before, now, assume_unique=True))
+    if np.any(wait):
+        sim.caches["held_begins"] = {k: details.get(k) for k in fresh[wait].tolist()}
     sim.caches["touching"] = now
+
+
+def _begin_event(key: int, d: tuple[Any, ...] | None) -> ContactEvent:
+    a, b = key >> 32, (key & 0xFFFFFFFF) >> 1
+    if d is None:  # met by overlap of a pair the narrowphase kept no rows for (e.g. carried)
+        return ContactEvent("begin", a, b, False)
+    return ContactEvent("begin", a, b, False, d[0], d[1], d[2], d[3])
+
+
+def _begin_details(sim: Simulation, keys: np.ndarray, rows: np.ndarray, speed: np.ndarray
+                   ) -> dict[int, tuple[Any, ...]]:
+    """Points (P, n), normal (n,) from the lower handle, approach speed and summed normal impulse
+    of the step's touching rows, per non-sensor pair key that has rows; ``rows`` are the step's
+    touching contact rows and ``speed`` their normal speeds before the solve (aligned)."""
+    c = sim.contacts
+    if not len(keys) or c is None or not len(rows):
+        return {}
+    rk = _row_keys(sim, c, rows)
+    order = np.argsort(rk, kind="stable")
+    rk, rows, speed = rk[order], rows[order], speed[order]
+    lo = np.searchsorted(rk, keys, "left")
+    hi = np.searchsorted(rk, keys, "right")
+    imp = np.zeros(len(rows)) if c.normal_impulse is None else c.normal_impulse[rows]
+    cum_imp = np.concatenate([[0.0], np.cumsum(imp)])
+    closing = np.maximum(-speed, 0.0)
+    h = sim.bodies.handle
+    flip = h[c.body_a[rows]] > h[c.body_b[rows]]  # row normals run A -> B of the row
+    normals = np.where(flip[:, None], -c.normal[rows], c.normal[rows])
+    out: dict[int, tuple[Any, ...]] = {}
+    for k, s, e in zip(keys.tolist(), lo.tolist(), hi.tolist(), strict=True):  # one per new pair
+        if s == e:
+            continue
+        pts = c.point[rows[s:e]].copy()
+        pts.setflags(write=False)
+        nrm = normals[s].copy()
+        nrm.setflags(write=False)
+        out[k] = (pts, nrm, float(closing[s:e].max()), float(cum_imp[e] - cum_imp[s]))
+    return out
 
 
 def removal_events(sim: Simulation, handle: int) -> None:
@@ -91,13 +229,22 @@ def removal_events(sim: Simulation, handle: int) -> None:
     lo = before >> np.int64(32)
     hi = (before & np.int64(0xFFFFFFFF)) >> np.int64(1)
     gone = (lo == handle) | (hi == handle)
-    _emit(sim, "end", before[gone])
+    held: dict[int, Any] = sim.caches.get("held_begins", {})
+    unreported = np.array([k for k in held if (k >> 32) == handle or (k & 0xFFFFFFFF) >> 1 == handle],
+                          dtype=np.int64)
+    for k in unreported.tolist():  # a held pair whose begin was never reported ends silently
+        del held[k]
+    _emit(sim, "end", np.setdiff1d(before[gone], unreported))
     sim.caches["touching"] = before[~gone]
+
+
+def _stage_report(sim: Simulation, dt: float) -> None:
+    report_contacts(sim)
 
 
 def collision_stages() -> list[tuple[str, Stage]]:
     return [("find_pairs", _stage_find_pairs), ("find_contacts", _stage_find_contacts),
-            ("solve_impulses", _stage_solve)]
+            ("solve_impulses", _stage_solve), ("report_contacts", _stage_report)]
 
 
 def sleep_stages() -> list[tuple[str, Stage]]:
