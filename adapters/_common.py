@@ -48,6 +48,7 @@ import numpy as np
 from ndrigid.core.algebra import Algebra
 from ndrigid.core.errors import InputError, InputTypeError, as_float_array, positive_scalar
 from ndrigid.core.state.components import ALL_LAYERS, KIND_NAMES, STATIC
+from ndrigid.core.world.stages import _NO_POINTS
 from numpy.typing import NDArray
 
 from .loop import FixedStepper
@@ -146,10 +147,40 @@ class PoseStore:
         self.pending_velocity: dict[int, Velocity] = {}
 
 
-def _read_only(a: Any) -> Array:
-    a = np.array(a, dtype=np.float64)
+_READ_ONLY = ("{what} is read-only: it shows the physics state after the latest step. Assign a whole new "
+              "value to the field instead (transform.position = p, transform.rotor = R, velocity.linear = v, "
+              "velocity.angular = w), which the next step applies")
+
+
+class ReadOnlyArray(np.ndarray):
+    """What component fields return: a read-only float array whose in-place edits raise an
+    :class:`~ndrigid.core.errors.InputError` saying what to do (assign the field) instead of
+    numpy's generic "assignment destination is read-only". Arithmetic on it gives plain arrays."""
+
+    def __setitem__(self, key: Any, value: Any) -> None:
+        if not self.flags.writeable:
+            raise InputError(_READ_ONLY.format(what="this component array"))
+        super().__setitem__(key, value)
+
+    def __array_ufunc__(self, ufunc: Any, method: str, *inputs: Any, out: Any = None, **kwargs: Any) -> Any:
+        if out is not None:
+            if any(isinstance(o, ReadOnlyArray) and not o.flags.writeable for o in out):
+                raise InputError(_READ_ONLY.format(what="this component array"))
+            kwargs["out"] = tuple(np.asarray(o) if isinstance(o, ReadOnlyArray) else o for o in out)
+        plain = tuple(np.asarray(x) if isinstance(x, ReadOnlyArray) else x for x in inputs)
+        return getattr(ufunc, method)(*plain, **kwargs)
+
+    def __repr__(self) -> str:
+        return repr(np.asarray(self))
+
+
+def _read_only(a: Any, name: str = "value") -> Array:
+    a = as_float_array(name, a, ())
+    if a.ndim != 1:
+        raise InputError(f"{name}: expected a 1-D array of numbers, got shape {a.shape}")
+    a = a.copy()
     a.flags.writeable = False
-    return a
+    return a.view(ReadOnlyArray)
 
 
 class _Field:
@@ -174,11 +205,12 @@ class _Field:
         value, st = getattr(obj, self.attr), obj._store
         if value is not None or st is None:
             return value
-        return getattr(st, self.column)[obj._slot]
+        return getattr(st, self.column)[obj._slot].view(ReadOnlyArray)
 
     def __set__(self, obj: Any, value: Any) -> None:
         st = obj._store
-        setattr(obj, self.attr, _read_only(value if st is None else self.check(st, value, self.name)))
+        checked = value if st is None else self.check(st, value, self.name)
+        setattr(obj, self.attr, _read_only(checked, self.name))
         if st is not None:
             getattr(st, self.pending)[obj._slot] = obj
 
@@ -213,9 +245,12 @@ class _Bound:
 class Transform(_Bound):
     """Where a body is: the pose game code reads (and may assign to teleport the body).
 
-    ``Transform(position=None, rotor=None)`` before the body exists gives its starting pose.
+    ``Transform(position=None, rotor=None)`` before the body exists gives its starting pose (a
+    rotation matrix is accepted instead of the rotor under the keyword ``rotation``); values are
+    checked at once (finite, a unit rotor of the position's dimension).
     While bound, ``position`` (n,), ``rotor`` (2**(n-1),) and ``matrix`` (n, n) are read-only views
-    of the pose after the latest step (refreshed once per frame, not copied per entity).
+    of the pose after the latest step (refreshed once per frame, not copied per entity; an
+    in-place edit raises an error that says to assign instead).
     Assigning ``position`` or ``rotor`` teleports the body before the next step.
     """
 
@@ -225,10 +260,31 @@ class Transform(_Bound):
     rotor = _Field("rotor", "pending_pose", _rotor,
                    "(2**(n-1),) float: unit rotor of the body (x' = R x ~R).")
 
-    def __init__(self, position: Any = None, rotor: Any = None) -> None:
+    def __init__(self, position: Any = None, rotor: Any = None, *, rotation: Any = None) -> None:
         super().__init__()
-        self._position = None if position is None else _read_only(position)
-        self._rotor = None if rotor is None else _read_only(rotor)
+        self._position = None if position is None else _read_only(position, "position")
+        n = None if self._position is None else len(self._position)
+        if rotation is not None:
+            if rotor is not None:
+                raise InputError("rotor, rotation: expected at most one of a rotor and a rotation matrix, "
+                                 "got both")
+            M = as_float_array("rotation", rotation, ())
+            m = n if n is not None else (M.shape[0] if M.ndim == 2 else 0)
+            if M.shape != (m, m) or m < 2:
+                like = "n >= 2" if n is None else f"n = {n} like the position"
+                raise InputError(f"rotation: expected a square (n, n) matrix ({like}), got shape {M.shape}")
+            try:
+                rotor = Algebra(M.shape[0]).matrix_to_rotor(M)
+            except InputError as exc:
+                raise InputError(f"rotation: {str(exc).split(': ', 1)[1]}") from None
+        self._rotor = None if rotor is None else _read_only(rotor, "rotor")
+        if self._rotor is not None:
+            size = len(self._rotor)
+            m = int(round(np.log2(size))) + 1 if size else 0
+            if size < 2 or 1 << (m - 1) != size or (n is not None and m != n):
+                want = f"2**(n-1) = {1 << (n - 1)}" if n is not None else "2**(n-1) for some n >= 2"
+                raise InputError(f"rotor: expected {want} components, got {size}")
+            Algebra(m).check_rotor(self._rotor, "rotor")
 
     def __repr__(self) -> str:
         return f"Transform(position={self.position!r}, rotor={self.rotor!r})"
@@ -238,7 +294,7 @@ class Transform(_Bound):
         """(n, n) float: the rotation matrix of ``rotor`` (column i is the image of e_i)."""
         st = self._store
         if st is not None and self._rotor is None:
-            return st.rotation[self._slot]
+            return st.rotation[self._slot].view(ReadOnlyArray)
         if self._rotor is not None:
             n = int(np.log2(len(self._rotor))) + 1
             return Algebra(n).rotor_to_matrix(self._rotor)
@@ -278,20 +334,30 @@ class Velocity(_Bound):
 
     def __init__(self, linear: Any = None, angular: Any = None) -> None:
         super().__init__()
-        self._linear = None if linear is None else _read_only(linear)
-        self._angular = None if angular is None else _read_only(angular)
+        self._linear = None if linear is None else _read_only(linear, "linear")
+        self._angular = None if angular is None else _read_only(angular, "angular")
 
     def __repr__(self) -> str:
         return f"Velocity(linear={self.linear!r}, angular={self.angular!r})"
 
 
 class EntityContact(NamedTuple):
-    """A contact event with entities in place of body handles (None for a body no entity owns)."""
+    """A contact event with entities in place of body handles (None for a body no entity owns).
+
+    The detail fields are those of the core's ``ContactEvent`` (a begin event of a non-sensor pair
+    carries them; others keep the defaults): ``points`` (P, n), ``normal`` (n,) from entity A toward
+    entity B, ``approach_speed`` (m/s, before the step's solve) and ``impulse`` (N s, the step's
+    total normal impulse).
+    """
 
     kind: str
     entity_a: Any
     entity_b: Any
     sensor: bool
+    points: Any = _NO_POINTS
+    normal: Any = None
+    approach_speed: float = 0.0
+    impulse: float = 0.0
 
 
 # -- the bridge -----------------------------------------------------------------------------------
@@ -511,7 +577,8 @@ class PhysicsBridge(Generic[E]):
         if events and self.on_contact is not None:
             ent = self._handle_entity.get
             for ev in events:  # one call per event is what an ECS event API takes
-                self.on_contact(EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor))
+                self.on_contact(EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor,
+                                              ev.points, ev.normal, ev.approach_speed, ev.impulse))
         # the end events of removed bodies came with this step: forget their entities now
         for h in self._gone:
             self._handle_entity.pop(h, None)

@@ -33,6 +33,11 @@ Choices:
   step: ``esper.dispatch_event(CONTACT_BEGIN | CONTACT_END, entity_a, entity_b, sensor)``. An
   entity is None for a body that no entity owns (one added to ``physics.sim`` directly). A body
   removed since the last step (its entity deleted) reports its end events with the old entity id.
+  The same events, with their details (points, normal, approach speed, impulse), are kept in
+  ``physics.contacts`` (an :class:`~ndrigid.adapters._common.EntityContact` list of the last
+  ``process`` call). Reading that list needs no handler: esper keeps handlers as weak methods,
+  and one whose object is collected at interpreter exit makes Python print an "Exception
+  ignored ... WeakMethod" message from esper's own code.
 * Change detection costs nothing per entity on a quiet frame: esper hands out the same cached
   query list until some entity or component changes, so the bridge diffs only when the list
   object is new (see :mod:`ndrigid.adapters._common` for the diff, the snapshots and the rules).
@@ -68,6 +73,7 @@ class PhysicsProcessor(esper.Processor):
         sim: the Simulation (its arrays are the physical state; read them for bulk work).
         bridge: the entity <-> body bookkeeping (``bridge.stepper.alpha`` for interpolation).
         steps_last_frame: fixed steps the last ``process`` call took.
+        contacts: the contact events (with details) of the last ``process`` call.
     """
 
     def __init__(self, dim: int | None = None, *, sim: Simulation | None = None, dt: float | None = None,
@@ -80,6 +86,7 @@ class PhysicsProcessor(esper.Processor):
         self.bridge: PhysicsBridge[int] = PhysicsBridge(sim, dt, max_steps_per_frame, self._dispatch)
         self.world: str | None = None
         self.steps_last_frame = 0
+        self.contacts: list[EntityContact] = []  # the contact events of the last process() call
         self._seen: Any = None  # the esper query list the bridge last diffed
 
     def process(self, frame_seconds: float | None = None, *args: Any, **kwargs: Any) -> None:
@@ -90,6 +97,7 @@ class PhysicsProcessor(esper.Processor):
             raise RuntimeError(f"PhysicsProcessor belongs to esper world {self.world!r}, got processed in "
                                f"{esper.current_world!r}; add one processor per world")
         self.sync()
+        self.contacts = []
         self.steps_last_frame = self.bridge.update(frame_seconds)
 
     def sync(self) -> None:
@@ -110,6 +118,7 @@ class PhysicsProcessor(esper.Processor):
         return self.bridge.entity_of(handle)
 
     def _dispatch(self, ev: EntityContact) -> None:
+        self.contacts.append(ev)
         esper.dispatch_event(_EVENT_NAMES[ev.kind], ev.entity_a, ev.entity_b, ev.sensor)
 
 

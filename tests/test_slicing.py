@@ -106,15 +106,15 @@ def test_bad_flats_and_poses_raise_input_errors() -> None:
         axis_flat(3, [0.0, 0.0, 0.0])
     box = Box([1.0, 1.0, 1.0])
     with pytest.raises(InputError, match="positions"):
-        slice_bodies(box, np.zeros((2, 4)), np.tile(np.eye(3), (2, 1, 1)), axis_flat(3))
+        slice_bodies(box, np.zeros((2, 4)), flat=axis_flat(3), rotations=np.tile(np.eye(3), (2, 1, 1)))
     with pytest.raises(InputError, match="same number of poses"):
-        slice_bodies(box, np.zeros((2, 3)), np.tile(np.eye(3), (3, 1, 1)), axis_flat(3))
+        slice_bodies(box, np.zeros((2, 3)), flat=axis_flat(3), rotations=np.tile(np.eye(3), (3, 1, 1)))
     with pytest.raises(InputError, match="flat"):
-        slice_bodies(box, np.zeros((1, 3)), np.eye(3)[None], axis_flat(4))
+        slice_bodies(box, np.zeros((1, 3)), flat=axis_flat(4), rotations=np.eye(3)[None])
     with pytest.raises(InputTypeError, match="Flat"):
-        slice_bodies(box, np.zeros((1, 3)), np.eye(3)[None], "x_2 = 0")
+        slice_bodies(box, np.zeros((1, 3)), flat="x_2 = 0", rotations=np.eye(3)[None])
     with pytest.raises(InputError, match="SimplexMesh"):
-        slice_shape(box.boundary_mesh(), np.zeros(3), np.eye(3), axis_flat(3, [0.0, 0.0]))
+        slice_shape(box.boundary_mesh(), np.zeros(3), flat=axis_flat(3, [0.0, 0.0]), rotation=np.eye(3))
     with pytest.raises(InputError, match="view"):
         make_camera(view=np.diag([1.0, 1.0, -1.0]))
 
@@ -127,7 +127,7 @@ def test_bad_flats_and_poses_raise_input_errors() -> None:
 def test_cube_cut_across_body_diagonal_is_regular_hexagon() -> None:
     # Coxeter, Regular Polytopes, sections of the cube (from memory): the central section of the cube
     # [-1, 1]^3 perpendicular to a body diagonal is a regular hexagon of area 3 sqrt 3 (side sqrt 2).
-    sec = slice_shape(hypercube(3, edge=2.0), np.zeros(3), np.eye(3), hyperplane(np.zeros(3), [1, 1, 1]))[0]
+    sec = slice_shape(hypercube(3, edge=2.0), np.zeros(3), flat=hyperplane(np.zeros(3), [1, 1, 1]))[0]
     V = sec.vertices
     assert V.shape == (6, 2)
     assert np.allclose(np.linalg.norm(V, axis=1), math.sqrt(2.0))
@@ -150,7 +150,7 @@ def test_ball_section_radius(dim: int, codim: int, rng: np.random.Generator) -> 
     r = 1.3
     flat = random_flat(dim, codim, rng)
     t = rng.normal(size=(40, dim))
-    out = slice_bodies(Ball(dim, r), t, np.tile(np.eye(dim), (40, 1, 1)), flat)[0]
+    out = slice_bodies(Ball(dim, r), t, flat=flat, rotations=np.tile(np.eye(dim), (40, 1, 1)))[0]
     d = np.linalg.norm((t - flat.point) @ flat.normals.T, axis=1)
     assert np.array_equal(out.hit, d <= r)
     assert np.allclose(out.radii[out.hit], np.sqrt(r * r - d[out.hit] ** 2))
@@ -174,7 +174,7 @@ def test_simplex_sections_parallel_to_a_facet_are_scaled_facets(dim: int, rng: n
     apex, base = h.min(), simplex.facet_offsets[f] + u @ t
     for lam in (0.2, 0.5, 0.9):
         flat = hyperplane(u * (apex + lam * (base - apex)), u)
-        sec = slice_shape(simplex, t, M, flat)[0]
+        sec = slice_shape(simplex, t, flat=flat, rotation=M)[0]
         assert len(sec.vertices) == dim
         if dim >= 2:
             dist = np.linalg.norm(sec.vertices[:, None] - sec.vertices[None], axis=-1)
@@ -224,7 +224,7 @@ def test_cavalieri_recovers_polytope_volume(dim: int, name: str, rng: np.random.
     w = ((hi - lo)[:, None] * wg / 2).ravel()
     flat = hyperplane(np.zeros(dim), u)
     # one batch: the body translated by -s u is cut by the fixed hyperplane at height s
-    batch = slice_bodies(shape, -s[:, None] * u, np.tile(M, (len(s), 1, 1)), flat)
+    batch = slice_bodies(shape, -s[:, None] * u, flat=flat, rotations=np.tile(M, (len(s), 1, 1)))
     from ndrigid.core.geometry.slicing import records
 
     recs = records(batch)
@@ -242,7 +242,7 @@ def test_cavalieri_recovers_ball_volume(dim: int) -> None:
     s, w = r * xg, r * wg
     flat = axis_flat(dim, [0.0])
     poses = np.outer(-s, np.eye(dim)[-1]), np.tile(np.eye(dim), (len(s), 1, 1))
-    out = slice_bodies(Ball(dim, r), *poses, flat)
+    out = slice_bodies(Ball(dim, r), poses[0], flat=flat, rotations=poses[1])
     from ndrigid.core.geometry.slicing import records
 
     total = sum(wi * rec.measure() for wi, rec in zip(w, records(out), strict=True))
@@ -279,7 +279,7 @@ def test_sections_match_scipy_halfspace_intersection(dim: int, codim: int, name:
         t = rng.normal(size=dim) * 0.1
         flat = random_flat(dim, codim, rng)
         ref = reference_section(shape, t, M, flat)
-        secs = slice_shape(shape, t, M, flat)
+        secs = slice_shape(shape, t, flat=flat, rotation=M)
         if ref is None:
             continue
         assert len(secs) == 1
@@ -294,7 +294,7 @@ def test_segment_section_in_2d_matches_linprog(rng: np.random.Generator) -> None
     poly = ConvexPolytope(rng.normal(size=(9, 2)))
     for _ in range(5):
         flat = random_flat(2, 1, rng)
-        sec = slice_shape(poly, np.zeros(2), np.eye(2), flat)
+        sec = slice_shape(poly, np.zeros(2), flat=flat)
         A = np.asarray(poly.facet_normals) @ flat.frame.T
         b = np.asarray(poly.facet_offsets) - np.asarray(poly.facet_normals) @ flat.point
         lo = linprog([1.0], A_ub=A, b_ub=b, bounds=[(None, None)])
@@ -312,7 +312,7 @@ def test_section_faces_are_hull_facets_with_outward_order(dim: int, rng: np.rand
     # (segment along rot90(n); polygon counter-clockwise around n: Newell's vector area along n).
     shape = Box(rng.uniform(0.4, 1.0, dim)) if dim != 4 else cell_24()
     M = random_rotation(dim, rng)
-    sec = slice_shape(shape, np.zeros(dim), M, random_flat(dim, 1, rng, spread=0.05))[0]
+    sec = slice_shape(shape, np.zeros(dim), flat=random_flat(dim, 1, rng, spread=0.05), rotation=M)[0]
     hull = ConvexHull(sec.vertices)
     eq = hull.equations
     m = dim - 1
@@ -337,7 +337,7 @@ def test_24_cell_cut_through_twelve_vertices_is_a_cuboctahedron() -> None:
     # The flat contains ridges of the 24-cell, so each triangle is the section of two cells: it
     # must be reported once.
     shape = cell_24(edge=math.sqrt(2.0))
-    sec = slice_shape(shape, np.zeros(4), np.eye(4), axis_flat(4, [0.0]))[0]
+    sec = slice_shape(shape, np.zeros(4), flat=axis_flat(4, [0.0]))[0]
     V = np.asarray(shape.vertices)
     brute = V[np.abs(V[:, 3]) < 1e-12, :3]
     assert same_point_sets(sec.vertices, brute)
@@ -353,8 +353,8 @@ def test_mesh_section_matches_polytope_section(dim: int, rng: np.random.Generato
     box = Box(rng.uniform(0.4, 1.0, dim))
     M = random_rotation(dim, rng)
     flat = random_flat(dim, 1, rng, spread=0.05)
-    a = slice_shape(box, np.zeros(dim), M, flat)[0]
-    b = slice_shape(box.boundary_mesh(), np.zeros(dim), M, flat)[0]
+    a = slice_shape(box, np.zeros(dim), flat=flat, rotation=M)[0]
+    b = slice_shape(box.boundary_mesh(), np.zeros(dim), flat=flat, rotation=M)[0]
     assert b.kind == "mesh"
     assert b.measure() == pytest.approx(_section_measure(a, dim - 1), rel=1e-9)
 
@@ -367,7 +367,7 @@ def test_halfspace_section_by_sampling(dim: int, rng: np.random.Generator) -> No
     M = random_rotation(dim, rng)
     t = rng.normal(size=dim)
     flat = random_flat(dim, 1, rng)
-    sec = slice_shape(hs, t, M, flat)[0]
+    sec = slice_shape(hs, t, flat=flat, rotation=M)[0]
     s = rng.normal(size=(500, dim - 1)) * 3
     x = flat.to_world(s)
     inside_world = (x - t) @ M @ hs.normal <= hs.offset
@@ -389,9 +389,10 @@ def test_compound_is_sliced_piece_by_piece(rng: np.random.Generator) -> None:
     M = random_rotation(4, rng)
     t = rng.normal(size=4) * 0.1
     flat = axis_flat(4, [0.0])
-    secs = slice_shape(comp, t, M, flat)
+    secs = slice_shape(comp, t, flat=flat, rotation=M)
     assert [s.piece for s in secs] == [0, 1]
-    box_alone = slice_shape(comp.shapes[0], t + M @ comp.positions[0], M @ comp.rotations[0], flat)[0]
+    box_alone = slice_shape(comp.shapes[0], t + M @ comp.positions[0], flat=flat,
+                            rotation=M @ comp.rotations[0])[0]
     assert same_point_sets(secs[0].vertices, box_alone.vertices)
     c = t + M @ comp.positions[1]
     assert secs[1].radius == pytest.approx(math.sqrt(0.16 - c[3] ** 2))
@@ -425,7 +426,7 @@ def test_slice_world_returns_cut_bodies_with_handles() -> None:
 def test_back_face_removal_keeps_three_cube_faces(perspective: bool) -> None:
     # Common practice: a convex cube seen from a generic direction shows exactly 3 of its 6 faces,
     # and each shown face is nearer the eye than the hidden face opposite it.
-    cube = slice_shape(Box([1.0, 1.0, 1.0]), np.zeros(3), np.eye(3), axis_flat(3, []))[0]
+    cube = slice_shape(Box([1.0, 1.0, 1.0]), np.zeros(3), flat=axis_flat(3, []))[0]
     cam = make_camera(orbit_view(0.6, 0.45), distance=12.0, perspective=perspective)
     cen = np.stack([cube.vertices[f].mean(axis=0) for f in cube.faces])
     vis = facing_camera(cube.face_normals, cen, cam)

@@ -476,16 +476,31 @@ class Section:
         raise InputError(f"measure: sections of dimension m = {m} >= 4 are not supported; use ConvexHull")
 
 
-def _check_poses(shape: Shape, positions: Any, rotations: Any) -> tuple[Array, Array]:
+def _check_poses(shape: Shape, positions: Any, rotors: Any, rotations: Any) -> tuple[Array, Array]:
+    """Positions (B, n) and rotation matrices (B, n, n) of a public batch of poses: rotors
+    (B, 2**(n-1)) or, under the explicit keyword, rotation matrices; neither means identity."""
+    from ..algebra import Algebra
+
     n = shape.dim
-    t = as_float_array("positions", positions, (n,))
-    M = as_float_array("rotations", rotations, (n, n))
-    t = t.reshape(-1, n)
-    M = M.reshape(-1, n, n)
+    t = as_float_array("positions", positions, (n,)).reshape(-1, n)
+    if rotors is not None and rotations is not None:
+        raise InputError("rotors, rotations: expected at most one of rotors and rotation matrices, got both")
+    if rotations is not None:
+        M = as_float_array("rotations", rotations, (n, n)).reshape(-1, n, n)
+        Algebra(n).matrix_to_rotor(M) if M.size else None  # validates: orthogonal, det +1
+    elif rotors is not None:
+        alg = Algebra(n)
+        arr = np.asarray(rotors) if not isinstance(rotors, str) else None
+        if arr is not None and arr.ndim >= 2 and arr.shape[-2:] == (n, n) and n * n != alg.even_size:
+            raise InputError(f"rotors: expected rotors with {alg.even_size} components, got rotation "
+                             f"matrices of shape {arr.shape}; pass matrices as rotations=...")
+        R = alg.check_rotor(rotors, "rotors").reshape(-1, alg.even_size)
+        M = alg.rotor_to_matrix(alg.rotor_normalize(R, 2))
+    else:
+        M = np.broadcast_to(np.eye(n), (t.shape[0], n, n)).copy()
     if t.shape[0] != M.shape[0]:
         raise InputError(f"positions, rotations: expected the same number of poses, got {t.shape[0]} "
-                         f"positions "
-                         f"and {M.shape[0]} rotations")
+                         f"positions and {M.shape[0]} orientations")
     return t, M
 
 
@@ -933,16 +948,19 @@ def _slice_halfspace(shape: HalfSpace, t: Array, M: Array, flat: Flat, handles: 
     return SectionBatch(kind="halfspace", handles=handles, piece=piece, hit=hit, normals=nm, offsets=o)
 
 
-def slice_bodies(shape: Shape, positions: Any, rotations: Any, flat: Flat, handles: Any = None,
-                 piece: int = -1) -> list[SectionBatch]:
-    """Sections of B bodies sharing ``shape``, with poses positions (B, n) and rotations (B, n, n).
+def slice_bodies(shape: Shape, positions: Any, rotors: Any = None, flat: Flat | None = None,
+                 handles: Any = None, piece: int = -1, *, rotations: Any = None) -> list[SectionBatch]:
+    """Sections of B bodies sharing ``shape``, posed by positions (B, n) and unit rotors
+    (B, 2**(n-1)), or rotation matrices (B, n, n) under the keyword ``rotations`` (neither: identity).
 
     A body's local point y lies at ``position + rotation @ y``. Returns one :class:`SectionBatch`
     (a Compound gives one per piece). ``handles`` (B,) labels the bodies (default -1).
     """
     if not isinstance(shape, Shape):
         raise InputTypeError(f"shape: expected an ndrigid shape, got {type(shape).__name__}")
-    t, M = _check_poses(shape, positions, rotations)
+    if flat is None:
+        raise InputError("flat: expected the Flat to cut across (axis_flat, hyperplane ...), got None")
+    t, M = _check_poses(shape, positions, rotors, rotations)
     flat = _check_flat(flat, shape.dim)
     h = np.full(t.shape[0], -1, dtype=np.int64) if handles is None else np.asarray(handles, dtype=np.int64)
     if h.shape != (t.shape[0],):
@@ -965,12 +983,26 @@ def _slice_checked(shape: Shape, t: Array, M: Array, flat: Flat, h: NDArray[np.i
     return [_slice_polytope(shape, t, M, flat, h, piece)]
 
 
-def slice_shape(shape: Shape, position: Any, rotation: Any, flat: Flat) -> list[Section]:
-    """Sections of one body (a list: one per compound piece, empty when the flat misses it)."""
+def slice_shape(shape: Shape, position: Any = None, rotor: Any = None, flat: Flat | None = None, *,
+                rotation: Any = None) -> list[Section]:
+    """Sections of one body posed by ``position`` (n,) and a unit ``rotor``, or a rotation matrix
+    (n, n) under the keyword ``rotation`` (a list: one per compound piece, empty when the flat
+    misses it).
+
+    >>> from ndrigid.core import Box
+    >>> sec = slice_shape(Box([1, 1, 1]), [0, 0, 0.5], flat=axis_flat(3))[0]
+    >>> sec.kind, len(sec.vertices)
+    ('polytope', 4)
+    """
     n = shape.dim if isinstance(shape, Shape) else 0
-    pos = as_float_array("position", position, (n,)).reshape(1, n) if n else position
-    rot = as_float_array("rotation", rotation, (n, n)).reshape(1, n, n) if n else rotation
-    return records(slice_bodies(shape, pos, rot, flat))
+    if not n:
+        raise InputTypeError(f"shape: expected an ndrigid shape, got {type(shape).__name__}")
+    pos = np.zeros((1, n)) if position is None else as_float_array("position", position, (n,)).reshape(1, n)
+    if pos.shape != (1, n) or (position is not None and np.ndim(position) != 1):
+        raise InputError(f"position: expected shape ({n},), got {np.shape(position)}")
+    rots = None if rotation is None else as_float_array("rotation", rotation, (n, n)).reshape(1, n, n)
+    rtrs = None if rotor is None else np.asarray(rotor)[None] if not isinstance(rotor, str) else rotor
+    return records(slice_bodies(shape, pos, rtrs, flat, rotations=rots))
 
 
 def records(batches: list[SectionBatch]) -> list[Section]:
@@ -1022,16 +1054,27 @@ class WorldSlice:
         return records(self.batches)
 
 
-def slice_world(sim: Simulation, flat: Flat) -> WorldSlice:
+def slice_world(sim: Simulation, flat: Flat, positions: Any = None, rotors: Any = None) -> WorldSlice:
     """Slice every body of ``sim`` by ``flat``: bodies grouped by shape, each group one batch.
 
+    ``positions`` (N, n) and ``rotors`` (N, 2**(n-1)), in row order, replace the bodies' poses
+    (e.g. ``FixedStepper.interpolated()`` for drawing between steps); by default the current ones.
     Bodies whose bounding sphere misses the flat are skipped before any per-shape work.
     """
     flat = _check_flat(flat, sim.dim)
     b = sim.bodies
     if b.count == 0:
         return WorldSlice(flat, [])
-    dist = np.linalg.norm((b.position - flat.point) @ flat.normals.T, axis=1)
+    pos, rot = b.position, b.rotation
+    if positions is not None or rotors is not None:
+        n, alg = sim.dim, sim.alg
+        pos = pos if positions is None else as_float_array("positions", positions, (b.count, n))
+        if rotors is not None:
+            R = alg.check_rotor(as_float_array("rotors", rotors, (b.count, alg.even_size)), "rotors", tol=1e-4)
+            rot = alg.rotor_to_matrix(alg.rotor_normalize(R, 2))
+        if pos.shape != (b.count, n):
+            raise InputError(f"positions: expected shape ({b.count}, {n}) (one row per body), got {pos.shape}")
+    dist = np.linalg.norm((pos - flat.point) @ flat.normals.T, axis=1)
     near = np.flatnonzero(dist <= b.radius * (1.0 + 1e-9))
     sid = b.shape_id[near]
     batches: list[SectionBatch] = []
@@ -1042,7 +1085,7 @@ def slice_world(sim: Simulation, flat: Flat) -> WorldSlice:
     for s0, s1 in zip(starts, ends, strict=True):  # one pass per distinct shape
         rows = near[s0:s1]
         shape = sim.info.shapes[int(sid[s0])]
-        batches += _slice_checked(shape, b.position[rows], b.rotation[rows], flat, b.handle[rows].copy(), -1)
+        batches += _slice_checked(shape, pos[rows], rot[rows], flat, b.handle[rows].copy(), -1)
     return WorldSlice(flat, batches)
 
 
@@ -1080,7 +1123,7 @@ def halfspace_region(normal: Any, offset: float, lo: Any, hi: Any) -> Section | 
         poly = ConvexPolytope(P)
     except InputError:
         return None
-    return slice_shape(poly, np.zeros(m), np.eye(m), axis_flat(m, []))[0]
+    return slice_shape(poly, np.zeros(m), flat=axis_flat(m, []))[0]
 
 
 # ---------------------------------------------------------------------------------------------
