@@ -25,7 +25,7 @@ import argparse
 import os
 import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -74,7 +74,7 @@ class App:
         self.font = pygame.font.Font(None, max(14, size[1] // 30))
         self.small = pygame.font.Font(None, max(12, size[1] // 40))
         self.world: Any = None
-        self._region_cache: dict[Any, Any] = {}
+        self._view: Any = None  # the drawing helper (see view())
         self.reset()
 
     # -- scene ------------------------------------------------------------------------------------
@@ -89,7 +89,7 @@ class App:
         self.info = scenes.build_scene(self.scene_name, self.world, self.count)
         self.t = 0.0
         self.grab = None
-        self._region_cache.clear()
+        self._view = None
 
     def switch(self, name: str) -> None:
         self.scene_name = name
@@ -283,49 +283,36 @@ class App:
         if self.show_help:
             self.draw_help(surf)
 
-    def _halfspace_polygon(self, normal: np.ndarray, offset: float, lo: np.ndarray, hi: np.ndarray) -> Any:
-        from ndrigid.core.geometry.slicing import halfspace_region
-
-        key = (tuple(np.round(normal, 6)), round(offset, 6), tuple(lo), tuple(hi))
-        if key not in self._region_cache:
-            self._region_cache[key] = halfspace_region(normal, offset, lo, hi)
-        return self._region_cache[key]
-
-    def draw_flat(self, surf: Any) -> None:
-        """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces."""
-        from ndrigid.core.geometry.slicing import slice_world
+    def view(self) -> Any:
+        """The public drawing helper (ndrigid.adapters.pygame_draw), kept across frames (its
+        half-space regions are cached) and brought up to date with the app's slice and camera."""
+        from ndrigid.adapters.pygame_draw import SliceView
 
         from . import palette as P
 
-        pg, sim = self.pg, self.sim
-        flat = self.flat()
+        v = self._view
+        if v is None or v.sim is not self.sim:
+            v = self._view = SliceView(self.sim, self.flat(), span=self.info.span, pygame=self.pg,
+                                       colours=self.world.colours, static_colour=P.BEDROCK,
+                                       outline=P.OUTLINE_INK)
+        v.flat, v.span, v.centre = self.flat(), self.info.span, (self.info.centre[0], self.info.centre[1])
+        v.yaw, v.pitch, v.perspective = self.yaw, self.pitch, self.perspective
+        v.colours = self.world.colours
+        v.highlight = {self.grab.handle} if self.grab else set()
+        return v
+
+    def poses(self) -> tuple[np.ndarray, np.ndarray]:
+        """Poses to draw: interpolated between the last two fixed steps by the banked fraction of a
+        step (the adapter's FixedStepper), so motion stays smooth whatever the frame rate."""
+        return self.world.physics.bridge.stepper.interpolated()
+
+    def draw_flat(self, surf: Any) -> None:
+        """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces."""
         span = self.info.span
-        lo = np.array([self.info.centre[0] - span, self.info.centre[1] - span])
-        hi = np.array([self.info.centre[0] + span, self.info.centre[1] + span])
-        grabbed = self.grab.handle if self.grab else -1
-        for rec in slice_world(sim, flat).records():
-            col = self.world.colours.get(rec.handle, P.BEDROCK)
-            edge = P.SIGNAL_AMBER if rec.handle == grabbed else P.OUTLINE_INK
-            if rec.kind == "halfspace":
-                if not np.any(rec.normal):
-                    continue
-                reg = self._halfspace_polygon(rec.normal, rec.offset, lo, hi)
-                if reg is not None and reg.outline is not None:
-                    pg.draw.polygon(surf, col, self.to_screen(reg.vertices[reg.outline]).tolist())
-                    ring = self.to_screen(reg.vertices[reg.outline]).tolist()
-                    pg.draw.polygon(surf, P.BEDROCK_EDGE, ring, 1)
-            elif rec.kind == "ball":
-                c = self.to_screen(rec.centre)
-                r = max(1, int(rec.radius * self.scale()))
-                pg.draw.circle(surf, col, c.tolist(), r)
-                pg.draw.circle(surf, edge, c.tolist(), r, 1 if edge is P.OUTLINE_INK else 2)
-                axis = sim.rotation(rec.handle)[:, 0] @ flat.frame.T  # the body's e_0 axis in the slice
-                pg.draw.line(surf, P.mix(col, P.OUTLINE_INK, 0.5), c.tolist(),
-                             (c + np.array([axis[0], -axis[1]]) * r).tolist(), 2)
-            elif rec.outline is not None and len(rec.outline) >= 3:
-                pts = self.to_screen(rec.vertices[rec.outline]).tolist()
-                pg.draw.polygon(surf, col, pts)
-                pg.draw.polygon(surf, edge, pts, 1 if edge is P.OUTLINE_INK else 2)
+        c = self.info.centre
+        lo = np.array([c[0] - span, c[1] - span])
+        hi = np.array([c[0] + span, c[1] + span])
+        self.view().draw(surf, poses=self.poses(), region=(lo, hi))
         if self.grab is not None:
             self._draw_spring(surf)
 
@@ -342,87 +329,12 @@ class App:
         self.pg.draw.line(surf, P.SIGNAL_AMBER, a.tolist(), self.mouse, 2)
         self.pg.draw.circle(surf, P.SIGNAL_AMBER, self.mouse, 4)
 
-    def _solid_faces(self, flat: Any, cam: Any, project: Any,
-                     span_box: tuple[np.ndarray, np.ndarray]) -> list:
-        """Draw list [(depth, kind, data)] of a 3-D slice: visible faces, balls, half-space regions."""
-        from ndrigid.core.geometry.slicing import face_soup, facing_camera, slice_world
-
-        from . import palette as P
-
-        ws = slice_world(self.sim, flat)
-        soup = face_soup(ws)
-        items: list = []
-        light = cam.view[2] * 0.4 + np.array([0.3, 0.8, 0.2])
-        light /= np.linalg.norm(light)
-        grabbed = self.grab.handle if self.grab else -1
-        if len(soup.faces):
-            vis = np.flatnonzero(facing_camera(soup.normals, soup.centres, cam))
-            px, _ = project(soup.points)
-            _, fdepth = project(soup.centres[vis])
-            lit = soup.normals[vis] @ light
-            for g, d, lv in zip(vis.tolist(), fdepth.tolist(), lit.tolist(), strict=True):
-                f = soup.faces[g]
-                h = int(soup.handles[g])
-                col = P.shade(self.world.colours.get(h, P.BEDROCK), lv)
-                items.append((d, "poly", (px[f[f >= 0]].tolist(), col, h == grabbed)))
-        if len(soup.balls_radius):
-            bp, bd = project(soup.balls_centre)
-            balls = zip(bp.tolist(), bd.tolist(), soup.balls_radius.tolist(), soup.balls_handle.tolist(),
-                        strict=True)
-            for c, d, r, h in balls:
-                rp = r * self.scale() * (cam.distance / max(d, 1e-6) if cam.perspective else 1.0)
-                items.append((d, "ball", (c, rp, self.world.colours.get(h, P.BEDROCK), h == grabbed)))
-        for bt in ws.batches:
-            if bt.kind != "halfspace":
-                continue
-            assert bt.normals is not None and bt.offsets is not None
-            for nrm, off in zip(bt.normals[bt.hit], bt.offsets[bt.hit], strict=True):
-                if not np.any(nrm):
-                    continue
-                reg = self._halfspace_polygon(nrm, float(off), *span_box)
-                if reg is None:
-                    continue
-                cen = np.stack([reg.vertices[f].mean(axis=0) for f in reg.faces])
-                keep = facing_camera(reg.face_normals, cen, cam)
-                px, _ = project(reg.vertices)
-                _, dep = project(cen)
-                for f, ok, d, nr in zip(reg.faces, keep, dep, reg.face_normals, strict=True):
-                    if ok:
-                        col = P.shade(P.BEDROCK, float(nr @ light))
-                        items.append((float(d), "poly", (px[f].tolist(), col, False)))
-        return items
-
-    def _paint(self, surf: Any, items: list, thin: bool = False) -> None:
-        from ndrigid.core.geometry.slicing import paint_order
-
-        from . import palette as P
-
-        pg = self.pg
-        for i in paint_order([it[0] for it in items]).tolist():
-            _, kind, data = items[i]
-            if kind == "poly":
-                pts, col, hot = data
-                if len(pts) >= 3:
-                    pg.draw.polygon(surf, col, pts)
-                    if not thin:
-                        pg.draw.polygon(surf, P.SIGNAL_AMBER if hot else P.mix(col, P.OUTLINE_INK, 0.6), pts,
-                                        2 if hot else 1)
-            else:
-                c, rp, col, hot = data
-                r = max(1, int(rp))
-                pg.draw.circle(surf, P.shade(col, 0.55), c, r)
-                glint = (c[0] - r * 0.3, c[1] - r * 0.3)
-                pg.draw.circle(surf, P.shade(col, 1.0), glint, max(1, int(r * 0.45)))
-                pg.draw.circle(surf, P.SIGNAL_AMBER if hot else P.OUTLINE_INK, c, r, 2 if hot else 1)
-
     def draw_solid(self, surf: Any) -> None:
         """4-D and 5-D: the 3-D slice, shaded, back faces removed, painter's order."""
-        cam = self.camera()
         span = self.info.span
         c = self.info.centre
         box = (np.array([c[0] - span * 0.6, -1.0, -2.5]), np.array([c[0] + span * 0.6, 0.5 * span, 2.5]))
-        items = self._solid_faces(self.flat(), cam, lambda P: self.project3(P, cam), box)
-        self._paint(surf, items)
+        self.view().draw(surf, poses=self.poses(), region=box, camera=self.camera())
         if self.grab is not None:
             self._draw_spring(surf)
 
@@ -440,18 +352,18 @@ class App:
         span = self.info.span
         c = self.info.centre
         cam = make_camera(self.inset_view, np.array([c[0], c[1], 0.0]), span * 1.2, True)
-        s = W / span
-
-        def project(Q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-            xy, d = project_points(Q, cam)
-            return np.stack([W / 2 + xy[:, 0] * s, H / 2 - xy[:, 1] * s], axis=1), d
-
+        view = self.view()
+        whole = replace(view, flat=axis_flat(3, []), highlight=set(view.highlight))
+        whole._regions = view._regions
         box = (np.array([c[0] - span * 0.6, -0.5, -2.5]), np.array([c[0] + span * 0.6, 0.0, 2.5]))
-        self._paint(inset, self._solid_faces(axis_flat(3, []), cam, project, box), thin=True)
+        whole.draw(inset, poses=self.poses(), region=box, camera=cam, thin=True)
         w = float(self.offsets[0])
         corners = np.array([[c[0] - span / 2, -0.2, w], [c[0] + span / 2, -0.2, w],
                             [c[0] + span / 2, span * 0.5, w], [c[0] - span / 2, span * 0.5, w]])
-        pg.draw.polygon(inset, P.SIGNAL_AMBER, project(corners)[0].tolist(), 1)
+        xy, _ = project_points(corners, cam)
+        s = W / span
+        ring = np.stack([W / 2 + xy[:, 0] * s, H / 2 - xy[:, 1] * s], axis=1)
+        pg.draw.polygon(inset, P.SIGNAL_AMBER, ring.tolist(), 1)
         pg.draw.rect(inset, P.FADED_CHALK, inset.get_rect(), 1)
         surf.blit(inset, (x0, y0))
         surf.blit(self.small.render("whole 3-D world", True, P.FADED_CHALK), (x0 + 6, y0 + H - 16))
