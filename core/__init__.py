@@ -1,12 +1,25 @@
 """ndrigid.core: the dimension-generic rigid-body engine (no ECS, no renderer).
 
 Public surface: the algebra (``Algebra``), shapes and mass properties, the ``Simulation`` facade
-with its ``Settings``, the component kinds, contact events, scene queries and slicing. Nothing
+with its ``Settings``, the component kinds, contact events, scene queries, collision of two
+posed shapes without a simulation (``overlap``, ``distance``, ``contact_manifold``,
+``raycast_shape``) and slicing. Nothing
 here imports esper or pygame.
 """
 
+from pathlib import Path as _Path
+
 from . import kernels
 from .algebra import Algebra, bivector_pairs, second_compound, skew, unskew
+from .collision.pairs import (
+                              ContactPoints,
+                              Separation,
+                              ShapeRayHit,
+                              contact_manifold,
+                              distance,
+                              overlap,
+                              raycast_shape,
+)
 from .errors import InputError, InputTypeError
 from .geometry.mass import MassProperties, inertia_from_covariance, rotate_inertia, shift_inertia
 from .geometry.noff import read_noff, write_noff
@@ -14,22 +27,29 @@ from .geometry.polytopes import cell_24, cell_120, cell_600, hypercube, orthople
 from .geometry.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
 from .world.simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepTimings
 
+SAMPLE_MESH = _Path(__file__).resolve().parent / "data" / "rock4.noff"
+"""A 4-D sample mesh (nOFF): the boundary of a faceted rock, 40 vertices, 195 tetrahedra."""
+
 __all__ = [
     "DYNAMIC",
     "KINEMATIC",
+    "SAMPLE_MESH",
     "STATIC",
     "Algebra",
     "Ball",
     "Box",
     "Compound",
+    "ContactPoints",
     "ConvexPolytope",
     "HalfSpace",
     "InputError",
     "kernels",
     "InputTypeError",
     "MassProperties",
+    "Separation",
     "Settings",
     "Shape",
+    "ShapeRayHit",
     "SimplexMesh",
     "Simulation",
     "StepTimings",
@@ -37,9 +57,13 @@ __all__ = [
     "cell_120",
     "cell_24",
     "cell_600",
+    "contact_manifold",
+    "distance",
     "hypercube",
     "inertia_from_covariance",
     "orthoplex",
+    "overlap",
+    "raycast_shape",
     "read_noff",
     "regular_simplex",
     "rotate_inertia",
