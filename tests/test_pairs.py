@@ -101,6 +101,14 @@ def _inside_constraints(shape, p: np.ndarray, M: np.ndarray, sl: slice):  # type
     return {"type": "ineq", "fun": lambda x: off - N @ (M.T @ (x[sl] - p))}
 
 
+def _gap2(x: np.ndarray, dim: int) -> float:
+    return float(np.sum((x[:dim] - x[dim:]) ** 2))
+
+
+def _gap2_grad(x: np.ndarray, dim: int) -> np.ndarray:
+    return np.concatenate([2.0 * (x[:dim] - x[dim:]), 2.0 * (x[dim:] - x[:dim])])
+
+
 @pytest.mark.parametrize("dim", DIMS)
 def test_distance_and_closest_points_agree_with_scipy_slsqp(dim: int) -> None:
     """On 25 separated random pairs, the gap and the closest points equal the minimiser of
@@ -122,10 +130,14 @@ def test_distance_and_closest_points_agree_with_scipy_slsqp(dim: int) -> None:
             continue
         cons = [_inside_constraints(sa, pa, Ma, slice(0, dim)),
                 _inside_constraints(sb, pb, Mb, slice(dim, None))]
-        x0 = np.concatenate([pa, pb])
-        res = minimize(lambda x: np.sum((x[:dim] - x[dim:]) ** 2), x0, method="SLSQP", constraints=cons,
-                       jac=lambda x: np.concatenate([2.0 * (x[:dim] - x[dim:]), 2.0 * (x[dim:] - x[:dim])]),
-                       options={"ftol": 1e-10, "maxiter": 500})
+        # SLSQP from the centres, and from two points part of the way toward each other should its
+        # line search stall (it sometimes does at a corner)
+        for frac in (0.0, 0.25, 0.4):
+            x0 = np.concatenate([pa + frac * (pb - pa), pb - frac * (pb - pa)])
+            res = minimize(_gap2, x0, args=(dim,), method="SLSQP", constraints=cons, jac=_gap2_grad,
+                           options={"ftol": 1e-10, "maxiter": 500})
+            if res.success:
+                break
         assert res.success, res.message
         ref = float(np.sqrt(res.fun))
         assert got.distance == pytest.approx(ref, abs=1e-5)
@@ -213,3 +225,40 @@ def test_a_rotation_matrix_is_taken_under_its_own_keyword() -> None:
         distance(HalfSpace.below(3, 1), None, HalfSpace.above(3, 1, 1.0), None)
     with pytest.raises(InputError, match="margin"):
         contact_manifold(box, None, box, [3.0, 0, 0], margin=-1.0)
+
+
+def _mtd(Va: np.ndarray, Vb: np.ndarray) -> float:
+    """The minimum translation distance, independently: the distance from the origin to the nearest
+    facet of the convex hull of the Minkowski difference A - B (scipy ConvexHull, qhull)."""
+    from scipy.spatial import ConvexHull
+
+    D = (Va[:, None, :] - Vb[None, :, :]).reshape(-1, Va.shape[1])
+    return float(np.min(-ConvexHull(D).equations[:, -1]))
+
+
+@pytest.mark.parametrize("dim", [3, 4, 5])
+def test_deep_overlaps_report_the_exact_penetration_depth(dim: int) -> None:
+    """500 random polytope pairs per dimension, overlapping by up to half their size: the signed
+    distance is minus the minimum translation distance to 1e-6 relative, and the contact manifold
+    never reports less than it (a face manifold that lost its deep region gives way to the EPA
+    point: measured before, 1 / 4 / 36 of 300 pairs in 3-D / 4-D / 5-D were up to 47 % short)."""
+    rng = np.random.default_rng(400 + dim)
+    alg = Algebra(dim)
+    checked = 0
+    for _ in range(500):
+        pts = [rng.normal(size=(3 * dim + 4, dim)) for _ in range(2)]
+        A, B = (ConvexPolytope(p * rng.uniform(0.5, 1.0) / np.linalg.norm(p, axis=1).max()) for p in pts)
+        Ra, Rb = _random_rotor(alg, rng), _random_rotor(alg, rng)
+        u = rng.normal(size=dim)
+        pb = u / np.linalg.norm(u) * rng.uniform(0.0, 0.5)
+        Va = A.vertices @ alg.rotor_to_matrix(Ra).T
+        Vb = pb + B.vertices @ alg.rotor_to_matrix(Rb).T
+        ref = _mtd(Va, Vb)
+        if ref <= 1e-6:
+            continue
+        got = distance(A, None, B, pb, rotor_a=Ra, rotor_b=Rb)
+        assert -got.distance == pytest.approx(ref, rel=1e-6)
+        m = contact_manifold(A, None, B, pb, rotor_a=Ra, rotor_b=Rb)
+        assert m.depth.max() >= ref * (1.0 - 1e-6)
+        checked += 1
+    assert checked >= 400

@@ -14,8 +14,11 @@ what they report is what a step would see:
 * :func:`distance` -- the signed distance with witness points: the gap and the closest points of
   the two solids when apart, found by GJK on their vertex sets (Gilbert, Johnson and Keerthi,
   IEEE J. Robotics and Automation 1988; a ball is its centre with the radius taken off, a
-  half-space is exact); minus the penetration depth of the deepest contact point when they
-  overlap. Compounds: the smallest over their pieces.
+  half-space is exact); when they overlap, minus the penetration depth, the minimum translation
+  distance, by the expanding polytope algorithm (EPA) on the Minkowski difference (van den
+  Bergen, Collision Detection in Interactive 3D Environments, Morgan Kaufmann 2003), with the
+  deepest points of each solid.
+  Compounds: the smallest over their pieces (the deepest overlap).
 * :func:`raycast_shape` -- the first hit of a ray on one shape (the scene query's code).
 """
 
@@ -30,7 +33,7 @@ from ..algebra import Algebra
 from ..errors import InputError, InputTypeError, as_float_array
 from ..state.components import SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE
 from . import narrowphase as nph
-from .gjk import gjk_distance
+from .gjk import gjk_distance, penetration
 
 Array = NDArray[np.float64]
 
@@ -202,6 +205,41 @@ def _gap_to_halfspace(c: nph.Colliders, store: nph.ShapeStore, i: int, h: int) -
     return gap, low, low - gap * u
 
 
+def _penetration(pl: _Placed, mp: Any) -> Separation:
+    """Minus the penetration depth of overlapping shapes: the largest over their overlapping piece
+    pairs of the minimum translation distance, by EPA on the Minkowski difference of the vertex
+    sets for convex pieces (a ball is its centre plus the radius), exact from the contact points
+    where a half-space or two balls meet."""
+    c, store = pl.c, pl.store
+    best: tuple[float, Array, Array, Array] | None = None
+    for q in np.unique(mp.pair[mp.depth >= 0.0]).tolist():  # loop over overlapping piece pairs
+        i, j = int(pl.ia[q]), int(pl.ib[q])
+        rows = np.flatnonzero(mp.pair == q)
+        k = rows[int(np.argmax(mp.depth[rows]))]
+        dep, nrm, mid = float(mp.depth[k]), mp.normal[k].copy(), mp.point[k]
+        wa, wb = mid + 0.5 * dep * nrm, mid - 0.5 * dep * nrm
+        kinds = (int(c.kind[i]), int(c.kind[j]))
+        if SHAPE_HALFSPACE not in kinds and kinds != (SHAPE_BALL, SHAPE_BALL):
+            Va, ra = _vertices(c, store, i)
+            Vb, rb = _vertices(c, store, j)
+            core, v, w, sa, sb = gjk_distance(Va, Vb)
+            if core > 0.0:  # a ball's centre outside the other solid: the gap of the cores
+                u = -v / core  # from A's core toward B's
+                dep, nrm = ra + rb - core, u
+                wa, wb = w @ Va[sa] + ra * u, w @ Vb[sb] - rb * u
+            else:
+                epa = penetration(Va, Vb, sa, sb)
+                if epa is not None:
+                    d_e, n_e, lam, ea, eb = epa
+                    dep, nrm = d_e + ra + rb, n_e
+                    wa, wb = lam @ Va[ea] + ra * n_e, lam @ Vb[eb] - rb * n_e
+        if best is None or dep > best[0]:
+            best = (dep, wa, wb, nrm)
+    assert best is not None
+    dep, wa, wb, nrm = best
+    return Separation(-float(dep), wa, wb, nrm)
+
+
 def distance(shape_a: Any, position_a: Any, shape_b: Any, position_b: Any, *, rotor_a: Any = None,
              rotor_b: Any = None, rotation_a: Any = None, rotation_b: Any = None) -> Separation:
     """Signed distance and closest points of two posed solids (see :class:`Separation`).
@@ -216,11 +254,9 @@ def distance(shape_a: Any, position_a: Any, shape_b: Any, position_b: Any, *, ro
     if np.all(c.kind[pl.ia] == SHAPE_HALFSPACE) and np.all(c.kind[pl.ib] == SHAPE_HALFSPACE):
         raise InputError("shape_a, shape_b: the distance of two half-spaces is not defined (they overlap "
                          "unless parallel); expected at most one HalfSpace")
-    touching = pl.manifold(0.0)
-    if touching.depth.size and touching.depth.max() >= 0.0:
-        j = int(np.argmax(touching.depth))
-        dep, nrm, mid = float(touching.depth[j]), touching.normal[j], touching.point[j]
-        return Separation(-dep, mid + 0.5 * dep * nrm, mid - 0.5 * dep * nrm, nrm.copy())
+    mp = nph.collide_colliders(pl.alg, c, pl.ia, pl.ib, np.zeros(pl.ia.size), store)
+    if mp.depth.size and mp.depth.max() >= 0.0:
+        return _penetration(pl, mp)
     best: tuple[float, Array, Array] | None = None
     for i, j in zip(pl.ia.tolist(), pl.ib.tolist(), strict=True):  # loop over compound piece pairs
         ki, kj = int(c.kind[i]), int(c.kind[j])

@@ -1070,10 +1070,12 @@ def slice_world(sim: Simulation, flat: Flat, positions: Any = None, rotors: Any 
         n, alg = sim.dim, sim.alg
         pos = pos if positions is None else as_float_array("positions", positions, (b.count, n))
         if rotors is not None:
-            R = alg.check_rotor(as_float_array("rotors", rotors, (b.count, alg.even_size)), "rotors", tol=1e-4)
+            R = as_float_array("rotors", rotors, (b.count, alg.even_size))
+            R = alg.check_rotor(R, "rotors", tol=1e-4)
             rot = alg.rotor_to_matrix(alg.rotor_normalize(R, 2))
         if pos.shape != (b.count, n):
-            raise InputError(f"positions: expected shape ({b.count}, {n}) (one row per body), got {pos.shape}")
+            raise InputError(f"positions: expected shape ({b.count}, {n}) (one row per body), got "
+                             f"{pos.shape}")
     dist = np.linalg.norm((pos - flat.point) @ flat.normals.T, axis=1)
     near = np.flatnonzero(dist <= b.radius * (1.0 + 1e-9))
     sid = b.shape_id[near]

@@ -44,6 +44,8 @@ MAXS = N + 1
 GJK_ITER = 64
 EPA_ITER = 128
 EPA_TIE = 1e-9
+SHORT_REL = 1e-6
+SHORT_ABS = 1e-7
 VCAP = N + 1 + EPA_ITER + 1
 FACE_REL = 0.05
 FACE_ABS = 1e-4
@@ -1310,6 +1312,14 @@ def convex_batch(ball, sa, sb, pos_a, rot_a, rad_a, pos_b, rot_b, margin, verts,
                            P, D, Cd, keep)
             head = (np.int64(1 if use_b else 0) << np.int64(52)) + (np.int64(fr) << np.int64(36)) \
                 + (np.int64(fi) << np.int64(20))
+            # a deep overlap's face manifold shallower than the EPA depth: the one point instead
+            # (gjk.convex_pair)
+            dmax = -np.inf
+            for i in range(nc):
+                if keep[i] and D[i] > dmax:
+                    dmax = D[i]
+            if np.isfinite(depth) and depth > 0.0 and dmax < depth * (1.0 - SHORT_REL) - SHORT_ABS:
+                nc = 0
             for i in range(nc):
                 if keep[i]:
                     for t in range(N):
