@@ -1213,6 +1213,7 @@ class _Row:
     gain_on: float
     e: float
     vn0: float
+    gn: float  # change of the normal speed by this step's gravity
     sep: float
     k_unsplit: float
     ka0: float  # side A's and side B's part of the normal's inverse effective mass
@@ -1224,6 +1225,9 @@ class _Row:
     sliding: bool  # slid last step (kinetic friction)
     slides_now: bool
     bounces: bool
+    tau: float  # time of impact as a fraction of the step (speculative rows; 0 when touching)
+    target: float  # normal speed the bounce leaves with
+    vn_toi: float  # normal speed at the time of impact
 
     def __init__(self, **values: Any) -> None:
         self.__dict__.update(values)
@@ -1268,7 +1272,7 @@ def _warm_start_values(contacts: ContactSet, pair: list[int], old: dict[str, Any
 
 
 def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float,
-                             settings: Any, caches: dict[str, Any]) -> None:
+                             settings: Any, caches: dict[str, Any], gravity: Any = None) -> None:
     """Resolve one step's contact rows contact by contact (arguments as in solver.solve_impulses).
 
     Updates the velocities of awake dynamic bodies (and pushes their poses) in place and keeps the
@@ -1298,7 +1302,10 @@ def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
     salt = (step * 0x9E3779B97F4A7C15) % (1 << 64)
     salt = _to_int64(salt)
     if active:
-        _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings, salt)
+        g = np.zeros(n) if gravity is None else np.asarray(gravity, dtype=np.float64)
+        grav_n = {i: dt * float(contacts.normal[i] @ g) * (float(dyn[contacts.body_b[i]])
+                                                            - float(dyn[contacts.body_a[i]])) for i in active}
+        _solve_rows(alg, bodies, contacts, active, dyn, lam_n, lam_t, sliding, dt, settings, salt, grav_n)
     contacts.normal_impulse = np.array(lam_n, dtype=np.float64).reshape(M)
     contacts.tangent_impulse = np.array(lam_t, dtype=np.float64).reshape(M, n)
     order = sorted(range(M), key=lambda i: int(contacts.key[i]))
@@ -1314,9 +1321,10 @@ def solve_impulses_reference(alg: Algebra, bodies: Bodies, contacts: ContactSet 
 
 def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], dyn: list[bool],
                 lam_n: list[float], lam_t_world: list[Array], sliding: list[bool], dt: float,
-                settings: Any, salt: int) -> None:
+                settings: Any, salt: int, grav_n: dict[int, float] | None = None) -> None:
     """Solve the active rows; writes their impulses and sliding flags into the given lists. The batch
-    priorities are the ranks of the contact keys XOR ``salt`` (signed 64-bit)."""
+    priorities are the ranks of the contact keys XOR ``salt`` (signed 64-bit); ``grav_n`` is each
+    row's change of normal speed by this step's gravity (solver.py, step 5)."""
     n, k = alg.n, alg.k
     w = n + k
     batching = getattr(settings, "solver_batching", "point")
@@ -1391,7 +1399,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             bias_on=sep / dt, bias_off=sep / dt if spec else 0.0,
             # overlapping rows are soft in the biased passes; exactly touching rows stay rigid
             keep_on=1.0 - (iscale * unsplit if soft else 0.0), gain_on=mass_n * (mscale if soft else 1.0),
-            e=float(c.restitution[i]), vn0=float(G[0] @ X_ab),
+            e=float(c.restitution[i]), vn0=float(G[0] @ X_ab), gn=(grav_n or {}).get(i, 0.0),
             lam_n=lam_n[i], lam_t=D[1:] @ lam_t_world[i], max_n=lam_n[i], lam_warm=lam_n[i],
             sliding=sliding[i], slides_now=False, bounces=False, sep=sep,
             k_unsplit=float(KA[0, 0] + KB[0, 0]), ka0=float(KA[0, 0]), kb0=float(KB[0, 0])))
@@ -1518,7 +1526,13 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     # restitution: rows that approached faster than the threshold and took an impulse bounce
     thr = float(settings.bounce_threshold)
     for r in prepared:
-        r.bounces = r.e > 0.0 and r.vn0 < -thr and r.max_n > 0.0
+        # time of impact as a fraction of the step, the approach speed then, the bounce target
+        closing = -r.vn0
+        spec = r.sep > 0.0
+        r.tau = min(r.sep / (closing * dt), 1.0) if spec and closing > 0.0 else 0.0
+        r.vn_toi = r.vn0 + r.gn * (r.tau - 0.5) if spec else r.vn0 - r.gn
+        r.target = -r.e * r.vn_toi + r.gn * ((0.5 - r.tau) if spec else 0.5)
+        r.bounces = r.e > 0.0 and r.vn_toi < -thr and r.max_n > 0.0
     for batch in batches:
         changes = []
         for seg in batch:
@@ -1526,7 +1540,7 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             for r in seg:
                 if r.bounces:
                     vn = float(r.G[0] @ np.concatenate([X[r.a], X[r.b]]))
-                    new_n = max(r.lam_n - r.mass_n * (vn + r.e * r.vn0), 0.0)
+                    new_n = max(r.lam_n - r.mass_n * (vn - r.target), 0.0)
                     total = total + (new_n - r.lam_n) * r.H[0]
                     r.lam_n = new_n
             changes.append((seg[0].a, seg[0].b, total))
@@ -1545,7 +1559,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     toi_rows = [r for r in prepared if r.bounces and r.sep > 0.0]
     for side in (0, 1):  # A's moves, then B's
         for r in toi_rows:
-            p_pos = -(1.0 + r.e) * r.sep * (1.0 / r.k_unsplit) / toi_share[r.manifold]
+            # close the gap, leave at -e v_n(toi), fly the rest of the step (solver.py, step 5)
+            shift = r.e * r.vn_toi * r.tau * dt - r.sep + 0.5 * r.gn * r.tau * r.tau * dt
+            p_pos = shift * (1.0 / r.k_unsplit) / toi_share[r.manifold]
             body = r.b if side else r.a
             part = r.H[0, w:] if side else r.H[0, :w]
             toi_move[body] = toi_move.get(body, np.zeros(w)) + p_pos * part
@@ -1739,11 +1755,11 @@ def _stage_find_contacts(sim: Any, dt: float) -> None:
     contacts, touching, sensors = collide_reference(sim.alg, sim.bodies, sim.pairs, sim.info.shapes,
                                                     sim.settings, sim.caches, dt)
     sim.contacts = contacts
-    note_touching(sim, touching, sensors)
+    note_touching(sim, touching, sensors, dt)
 
 
 def _stage_solve(sim: Any, dt: float) -> None:
-    solve_impulses_reference(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    solve_impulses_reference(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches, sim.gravity)
 
 
 def _stage_advance_poses(sim: Any, dt: float) -> None:

@@ -466,7 +466,7 @@ def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
           allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, relax_push, shock_ratio,
-          shock_passes, rolling, patch, couple_passes, tilt_dead):
+          shock_passes, rolling, patch, couple_passes, tilt_dead, grav_n):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -508,6 +508,10 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     gain_on = np.empty(M)
     bias_off = np.empty(M)
     vn0 = np.empty(M)
+    tau = np.zeros(M)
+    vn_toi = np.empty(M)
+    targ = np.empty(M)
+    gq = np.empty(M)
     lam_n = np.empty(M)
     lam_t = np.empty((M, T))
     may_b = np.empty(M, np.bool_)
@@ -632,7 +636,20 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
             s5 += G[q, 0, W + t] * X[ib, t]
         vn0[q] = s4 + s5
         e[q] = rest[i]
-        may_b[q] = (e[q] > 0.0) and (vn0[q] < -bounce_thr)
+        # approach speed at the time of impact and the bounce's target (solver.py, step 5)
+        g = grav_n[i]
+        gq[q] = g
+        if spec:
+            closing = -vn0[q]
+            if closing > 0.0:
+                tq = sp / (closing * dt)
+                tau[q] = tq if tq < 1.0 else 1.0
+            vn_toi[q] = vn0[q] + g * (tau[q] - 0.5)
+            targ[q] = -e[q] * vn_toi[q] + g * (0.5 - tau[q])
+        else:
+            vn_toi[q] = vn0[q] - g
+            targ[q] = -e[q] * vn_toi[q] + 0.5 * g
+        may_b[q] = (e[q] > 0.0) and (vn_toi[q] < -bounce_thr)
 
     # the spring rests at the allowance less the mean static deflection of its manifold's
     # overlapping points under the warm-started load (solver.py, _load_deflection)
@@ -750,7 +767,7 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
             s10 += G[q, 0, W + t] * X[ib, t]
         vn = s9 + s10
         old = lam_n[q]
-        new = old - mass_n[q] * (vn + e[q] * vn0[q])
+        new = old - mass_n[q] * (vn - targ[q])
         if new < 0.0:
             new = 0.0
         dln = new - old
@@ -770,7 +787,9 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
                 if not (may_b[q] and max_n[q] > 0.0 and sep[q] > 0.0):
                     continue
                 body = A[q] if side == 0 else B[q]
-                p_pos = -(1.0 + e[q]) * sep[q] / unsplit_k[q] / n_toi[man[q]]
+                tq = tau[q]
+                shift = e[q] * vn_toi[q] * tq * dt - sep[q] + 0.5 * gq[q] * tq * tq * dt
+                p_pos = shift / unsplit_k[q] / n_toi[man[q]]
                 for t in range(W):
                     dpos[body, t] += p_pos * H[q, 0, lo + t]
         for i in range(NB):
@@ -810,4 +829,4 @@ def warm_up():
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
           1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 30.0, 1, 0.001,
-          0.01, 1, 0.0005)
+          0.01, 1, 0.0005, f1.copy())

@@ -27,6 +27,7 @@ from ..algebra import skew
 from ..collision import broadphase, narrowphase
 from ..dynamics import integrate as _integrate
 from ..dynamics import sleep, solver
+from ..state.components import DYNAMIC
 from . import queries as _queries
 
 if TYPE_CHECKING:
@@ -70,11 +71,11 @@ def _stage_find_contacts(sim: Simulation, dt: float) -> None:
     contacts, touching, sensor_touching = narrowphase.find_contacts(
         sim.alg, sim.bodies, sim.pairs, sim.info.shapes, sim.settings, sim.caches, dt)
     sim.contacts = contacts
-    note_touching(sim, touching, sensor_touching)
+    note_touching(sim, touching, sensor_touching, dt)
 
 
 def _stage_solve(sim: Simulation, dt: float) -> None:
-    solver.solve_impulses(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    solver.solve_impulses(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches, sim.gravity)
 
 
 def _stage_sleep(sim: Simulation, dt: float) -> None:
@@ -120,10 +121,12 @@ def _normal_speeds(sim: Simulation, c: ContactSet, rows: np.ndarray) -> np.ndarr
     return np.einsum("mi,mi->m", rel, c.normal[rows])
 
 
-def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray) -> None:
+def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.ndarray,
+                  dt: float | None = None) -> None:
     """Keep the narrowphase's overlapping pairs (T, 2) and (S, 2) for :func:`report_contacts`,
-    with the normal speeds before the solve of the rows of pairs that did not meet last step
-    (only they can begin)."""
+    with the normal speeds at the time of impact of the rows of pairs that did not meet last step
+    (only they can begin), as the solver judges a bounce (solver.py, step 5; no correction when
+    ``dt`` is None)."""
     c = sim.contacts
     before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
     speed = np.zeros(0 if c is None else c.count)
@@ -131,7 +134,18 @@ def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.nda
         new = ~np.isin(_row_keys(sim, c, np.arange(c.count)), before)
         if np.any(new):
             rows = np.nonzero(new)[0]
-            speed[rows] = _normal_speeds(sim, c, rows)
+            vn = _normal_speeds(sim, c, rows)
+            if dt is not None:
+                b = sim.bodies
+                dyn = ((b.kind == DYNAMIC) & b.awake).astype(np.float64)
+                gn = dt * (c.normal[rows] @ np.asarray(sim.gravity, dtype=np.float64)) * (
+                    dyn[c.body_b[rows]] - dyn[c.body_a[rows]])
+                gap = -c.depth[rows]
+                closing = -vn
+                tau = np.where((gap > 0.0) & (closing > 0.0),
+                               np.minimum(gap / np.maximum(closing * dt, 1e-300), 1.0), 0.0)
+                vn = np.where(gap > 0.0, vn + gn * (tau - 0.5), vn - gn)
+            speed[rows] = vn
     sim.caches["touch_now"] = (touching, sensor_touching, speed)
 
 
