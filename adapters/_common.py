@@ -273,10 +273,7 @@ class Transform(_Bound):
             if M.shape != (m, m) or m < 2:
                 like = "n >= 2" if n is None else f"n = {n} like the position"
                 raise InputError(f"rotation: expected a square (n, n) matrix ({like}), got shape {M.shape}")
-            try:
-                rotor = Algebra(M.shape[0]).matrix_to_rotor(M)
-            except InputError as exc:
-                raise InputError(f"rotation: {str(exc).split(': ', 1)[1]}") from None
+            rotor = Algebra(M.shape[0]).matrix_to_rotor(M, name="rotation")
         self._rotor = None if rotor is None else _read_only(rotor, "rotor")
         if self._rotor is not None:
             size = len(self._rotor)

@@ -659,7 +659,7 @@ class Algebra:
 
     # -- matrices to rotors -----------------------------------------------------------------------
 
-    def matrix_to_rotor(self, M: Any, previous: Any = None) -> Array:
+    def matrix_to_rotor(self, M: Any, previous: Any = None, name: str = "M") -> Array:
         """Rotor of rotation matrices (..., n, n), by factorising M into reflections.
 
         Cartan-Dieudonne: Householder reflections H_0 .. H_(n-1) bring M to a diagonal of +-1
@@ -667,14 +667,15 @@ class Algebra:
         the remaining -1 entries pair up into reflections along basis vectors. The product of the
         reflection vectors is the rotor. The overall sign of a rotor is free; it is chosen so that
         ``<R, previous> >= 0`` when ``previous`` is given, else so that the scalar part is >= 0.
+        ``name`` is the argument name error messages give (callers pass their own, e.g. "rotation").
         """
         n = self.n
-        M = as_float_array("M", M, (n, n))
+        M = as_float_array(name, M, (n, n))
         det = np.linalg.det(M)
         gram = np.einsum("...ji,...jk->...ik", M, M)
         orth = np.max(np.abs(gram - np.eye(n)), axis=(-1, -2)) if M.size else 0
         if np.any(det <= 0) or np.any(orth > 1e-6):
-            raise InputError("M: expected rotation matrices (orthogonal to 1e-6, det +1), got one with "
+            raise InputError(f"{name}: expected rotation matrices (orthogonal to 1e-6, det +1), got one with "
                              f"det {float(np.min(det)) if np.size(det) else 0:.6g} and orthogonality error "
                              f"{float(np.max(orth)) if np.size(orth) else 0:.3g}")
         Q = M.copy()

@@ -57,10 +57,7 @@ def read_pose(alg: Algebra, position: Any = None, rotor: Any = None, rotation: A
         M = as_float_array(m_name, rotation, (n, n))
         if M.shape != (n, n):
             raise InputError(f"{m_name}: expected shape ({n}, {n}), got {M.shape}")
-        try:
-            R = alg.matrix_to_rotor(M)
-        except InputError as exc:
-            raise InputError(f"{m_name}: {str(exc).split(': ', 1)[1]}") from None
+        R = alg.matrix_to_rotor(M, name=m_name)
         return p, R, alg.rotor_to_matrix(R)
     if rotor is None:
         R = alg.identity_rotor()

@@ -487,7 +487,8 @@ def _check_poses(shape: Shape, positions: Any, rotors: Any, rotations: Any) -> t
         raise InputError("rotors, rotations: expected at most one of rotors and rotation matrices, got both")
     if rotations is not None:
         M = as_float_array("rotations", rotations, (n, n)).reshape(-1, n, n)
-        Algebra(n).matrix_to_rotor(M) if M.size else None  # validates: orthogonal, det +1
+        if M.size:
+            Algebra(n).matrix_to_rotor(M, name="rotations")  # validates: orthogonal, det +1
     elif rotors is not None:
         alg = Algebra(n)
         arr = np.asarray(rotors) if not isinstance(rotors, str) else None

@@ -693,10 +693,7 @@ class Simulation:
         M = as_float_array("rotation", rotation, (n, n))
         if M.shape != (n, n):
             raise InputError(f"rotation: expected shape ({n}, {n}), got {M.shape}")
-        try:
-            return self.alg.matrix_to_rotor(M)
-        except InputError as exc:
-            raise InputError(f"rotation: {str(exc).split(': ', 1)[1]}") from None
+        return self.alg.matrix_to_rotor(M, name="rotation")
 
     def set_pose(self, handle: int, position: Any = None, rotor: Any = None, *, rotation: Any = None) -> None:
         """Teleport a body (position of its local origin and/or rotor, or a rotation matrix under
