@@ -130,8 +130,10 @@ def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.nda
     c = sim.contacts
     before: np.ndarray = sim.caches.get("touching", np.zeros(0, np.int64))
     speed = np.zeros(0 if c is None else c.count)
+    keys = np.zeros(0, np.int64)
     if c is not None and c.count:
-        new = ~np.isin(_row_keys(sim, c, np.arange(c.count)), before)
+        keys = _row_keys(sim, c, np.arange(c.count))  # the rows' pair keys, reused by report_contacts
+        new = ~np.isin(keys, before)
         if np.any(new):
             rows = np.nonzero(new)[0]
             vn = _normal_speeds(sim, c, rows)
@@ -146,7 +148,7 @@ def note_touching(sim: Simulation, touching: np.ndarray, sensor_touching: np.nda
                                np.minimum(gap / np.maximum(closing * dt, 1e-300), 1.0), 0.0)
                 vn = np.where(gap > 0.0, vn + gn * (tau - 0.5), vn - gn)
             speed[rows] = vn
-    sim.caches["touch_now"] = (touching, sensor_touching, speed)
+    sim.caches["touch_now"] = (touching, sensor_touching, speed, keys)
 
 
 def report_contacts(sim: Simulation) -> None:
@@ -163,15 +165,18 @@ def report_contacts(sim: Simulation) -> None:
     """
     c = sim.contacts
     empty = np.zeros((0, 2), np.int64)
-    touching, sensor_touching, speed = sim.caches.pop("touch_now", (empty, empty, np.zeros(0)))
-    met = np.zeros(0, np.int64)
-    rows = np.zeros(0, np.int64)
+    none = np.zeros(0, np.int64)
+    touching, sensor_touching, speed, keys = sim.caches.pop("touch_now", (empty, empty, np.zeros(0), none))
+    met = none
+    rows = none
+    rk = none
     if c is not None and c.count:
         took = np.zeros(c.count, bool) if c.normal_impulse is None else c.normal_impulse > 0.0
         rows = np.nonzero(took | (c.depth >= 0.0))[0]
         speed = speed[rows] if len(speed) == c.count else np.zeros(len(rows))
+        rk = keys[rows] if len(keys) == c.count else _row_keys(sim, c, rows)
         sp = took[rows] & (c.depth[rows] < 0.0)  # speculative points the bodies reached
-        met = np.unique(_row_keys(sim, c, rows[sp]))
+        met = np.unique(rk[sp])
     overlapping = np.unique(np.concatenate([_touch_keys(sim, touching, False),
                                             _touch_keys(sim, sensor_touching, True)]))
     now = np.union1d(overlapping, met)
@@ -182,7 +187,7 @@ def report_contacts(sim: Simulation) -> None:
     # a new pair that meets only through speculative points waits a step (see above)
     wait = ~sensor & ~np.isin(fresh, overlapping, assume_unique=True)
     asked = np.concatenate([fresh[~sensor], np.array(sorted(held), dtype=np.int64)])
-    details = _begin_details(sim, asked, rows, speed)
+    details = _begin_details(sim, asked, rows, rk, speed)
     for key in fresh[~sensor & ~wait].tolist():
         sim.events.append(_begin_event(key, details.get(key)))
     for key in sorted(held):  # last step's held pairs: both steps' impulses
@@ -206,15 +211,16 @@ def _begin_event(key: int, d: tuple[Any, ...] | None) -> ContactEvent:
     return ContactEvent("begin", a, b, False, d[0], d[1], d[2], d[3])
 
 
-def _begin_details(sim: Simulation, keys: np.ndarray, rows: np.ndarray, speed: np.ndarray
-                   ) -> dict[int, tuple[Any, ...]]:
+def _begin_details(sim: Simulation, keys: np.ndarray, rows: np.ndarray, rk: np.ndarray,
+                   speed: np.ndarray) -> dict[int, tuple[Any, ...]]:
     """Points (P, n), normal (n,) from the lower handle, approach speed and summed normal impulse
     of the step's touching rows, per non-sensor pair key that has rows; ``rows`` are the step's
-    touching contact rows and ``speed`` their normal speeds before the solve (aligned)."""
+    touching contact rows, ``rk`` their pair keys and ``speed`` their normal speeds at impact."""
     c = sim.contacts
     if not len(keys) or c is None or not len(rows):
         return {}
-    rk = _row_keys(sim, c, rows)
+    asked = np.isin(rk, keys)  # only the rows of the pairs asked about (few) are gathered and sorted
+    rk, rows, speed = rk[asked], rows[asked], speed[asked]
     order = np.argsort(rk, kind="stable")
     rk, rows, speed = rk[order], rows[order], speed[order]
     lo = np.searchsorted(rk, keys, "left")
