@@ -46,7 +46,7 @@ from typing import Any, Generic, NamedTuple, TypeVar
 
 import numpy as np
 from ndrigid.core.algebra import Algebra
-from ndrigid.core.errors import InputError, InputTypeError, as_float_array, positive_scalar
+from ndrigid.core.errors import InputError, InputTypeError, as_float_array, positive_scalar, vector
 from ndrigid.core.state.components import ALL_LAYERS, KIND_NAMES, STATIC
 from ndrigid.core.world.stages import _NO_POINTS
 from numpy.typing import NDArray
@@ -75,6 +75,8 @@ class RigidBody:
         kind: "dynamic", "kinematic" or "static".
         density, mass: at most one (default density 1000 kg/m^n); ignored (0 accepted) unless dynamic.
         friction, static_friction, restitution: material coefficients (>= 0; restitution <= 1).
+        rolling_resistance, spin_friction: couples of a one-point contact per unit normal force, m
+            (>= 0; see ``Simulation.add_body``).
         layer, mask: collision filter bits (A and B collide iff A.layer & B.mask and B.layer & A.mask).
         linear_damping, angular_damping: rates >= 0, 1/s.
         sensor: report overlaps as contact events without a contact response.
@@ -87,6 +89,8 @@ class RigidBody:
     friction: float = 0.5
     static_friction: float | None = None
     restitution: float = 0.0
+    rolling_resistance: float = 0.001
+    spin_friction: float = 0.016
     layer: int = 1
     mask: int = ALL_LAYERS
     linear_damping: float = 0.0
@@ -111,16 +115,21 @@ class RigidBody:
         for name in ("density", "mass"):
             if getattr(self, name) is not None:
                 positive_scalar(name, getattr(self, name), allow_zero=self.kind != "dynamic")
-        for name in ("friction", "restitution", "linear_damping", "angular_damping"):
+        for name in ("friction", "restitution", "rolling_resistance", "spin_friction", "linear_damping",
+                     "angular_damping"):
             positive_scalar(name, getattr(self, name), allow_zero=True)
         if self.restitution > 1.0:
             raise InputError(f"restitution: expected a value in [0, 1] (above 1 every bounce gains "
                              f"energy), got {self.restitution!r}")
+        if not isinstance(self.sensor, (bool, np.bool_)):
+            raise InputTypeError(f"sensor: expected True or False, got {type(self.sensor).__name__} "
+                                 f"{self.sensor!r}")
 
     def body_arguments(self) -> dict[str, Any]:
         """Keyword arguments of ``Simulation.add_body`` for this description (shape excluded)."""
         return {"kind": self.kind, "density": self.density, "mass": self.mass, "friction": self.friction,
                 "static_friction": self.static_friction, "restitution": self.restitution,
+                "rolling_resistance": self.rolling_resistance, "spin_friction": self.spin_friction,
                 "layer": self.layer, "mask": self.mask, "linear_damping": self.linear_damping,
                 "angular_damping": self.angular_damping, "sensor": self.sensor}
 
@@ -216,15 +225,15 @@ class _Field:
 
 
 def _vector(st: PoseStore, v: Any, name: str) -> Array:
-    return as_float_array(name, v, (st.dim,))
+    return vector(name, v, st.dim)
 
 
 def _bivector(st: PoseStore, v: Any, name: str) -> Array:
-    return as_float_array(name, v, (st.alg.k,))
+    return vector(name, v, st.alg.k)
 
 
 def _rotor(st: PoseStore, v: Any, name: str) -> Array:
-    return st.alg.check_rotor(v, name)
+    return st.alg.check_rotor(v, name, single=True)
 
 
 class _Bound:
@@ -281,7 +290,7 @@ class Transform(_Bound):
             if size < 2 or 1 << (m - 1) != size or (n is not None and m != n):
                 want = f"2**(n-1) = {1 << (n - 1)}" if n is not None else "2**(n-1) for some n >= 2"
                 raise InputError(f"rotor: expected {want} components, got {size}")
-            Algebra(m).check_rotor(self._rotor, "rotor")
+            Algebra(m).check_rotor(self._rotor, "rotor", single=True)
 
     def __repr__(self) -> str:
         return f"Transform(position={self.position!r}, rotor={self.rotor!r})"
@@ -462,7 +471,8 @@ class PhysicsBridge(Generic[E]):
             if t._position is not None:
                 as_float_array(f"Transform.position of entity {e!r}", t._position, (n,))
             if t._rotor is not None:
-                self.sim.alg.check_rotor(t._rotor, f"Transform.rotor of entity {e!r}")
+                self.sim.alg.check_rotor(
+                    t._rotor, f"Transform.rotor of entity {e!r}", single=True)
         if v is not None:
             if v._linear is not None:
                 as_float_array(f"Velocity.linear of entity {e!r}", v._linear, (n,))

@@ -1,4 +1,5 @@
-"""Why each default of :class:`~ndrigid.core.world.simulation.Settings` is what it is: the scenes
+"""Why each default of :class:`~ndrigid.core.world.simulation.Settings` (and of the two couple
+coefficients of a body's material) is what it is: the scenes
 and figures it was chosen by, one variant per line.
 
 Run ``python -m ndrigid.bench.defaults`` (all groups, 2-D to 5-D) or pass group names
@@ -22,7 +23,9 @@ group's scene:
   10 s);
 * ``heavy``: a 1 kg box (half-width 0.25 m) on a floor under a box 10, 100 and 1,000 times
   heavier, after 10 s: the height error of each against the stacked half extents (mm);
-* ``piles``: the benchmark's 4-D bin of 200 balls and boxes (seed 0) with sleeping on: how long
+* ``piles``: the benchmark's 4-D bin of 200 balls and boxes (seed 0) with sleeping on, the
+  variants setting a material coefficient (``rolling_resistance``, ``spin_friction``) on every
+  body instead of a setting: how long
   after its kinetic energy first fell below 1 % of its peak 90 % of the bodies sleep (s; "never"
   within 30 s), and the lowest point of any body then (mm; the floor is at 0);
 * ``margins``: a ball at 50 m/s onto a 5 cm slab (passes through or stops), and a 3-D pile of 100
@@ -216,6 +219,9 @@ def piles(dim: int, **changes: Any) -> str:
     from .scenes import build_pile, lowest_point, settle_asleep
 
     sim, _ = build_pile(dim, 200, 0)
+    material = {k: changes.pop(k) for k in ("rolling_resistance", "spin_friction") if k in changes}
+    for h in sim.handles:
+        sim.set_material(int(h), **material)
     sim.settings = replace(sim.settings, sleep_enabled=True, **changes)
     t_low, t_asleep = settle_asleep(sim, 30.0)
     low = lowest_point(sim)
@@ -236,9 +242,10 @@ GROUPS: dict[str, tuple[Any, list[dict[str, Any]]]] = {
     "deep": (deep, [{}, {"separation_speed_cap": 1.0}, {"separation_speed_cap": 10.0}]),
     "sleep": (sleep_time, [{}, {"rest_speed": 0.02}, {"rest_speed": 0.01}, {"rest_time": 1.0}]),
     "heavy": (heavy, [{}]),
+    # material coefficients, set on every body of the pile (floor and walls included)
     "piles": (piles, [{}, {"rolling_resistance": 0.0}, {"rolling_resistance": 0.0005},
-                      {"rolling_resistance": 0.002}, {"contact_patch_radius": 0.0},
-                      {"contact_patch_radius": 0.005}, {"contact_patch_radius": 0.02}]),
+                      {"rolling_resistance": 0.002}, {"spin_friction": 0.0},
+                      {"spin_friction": 0.004}, {"spin_friction": 0.008}, {"spin_friction": 0.024}]),
     "margins": (margins, [{}, {"speculative_margin": 0.0}, {"speculative_margin": 0.3},
                           {"broadphase_margin": 0.0}, {"broadphase_margin": 0.02},
                           {"broadphase_margin": 0.2}]),

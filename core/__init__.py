@@ -20,7 +20,7 @@ from .collision.pairs import (
                               overlap,
                               raycast_shape,
 )
-from .errors import InputError, InputTypeError
+from .errors import InputError, InputTypeError, StepError
 from .geometry.mass import MassProperties, inertia_from_covariance, rotate_inertia, shift_inertia
 from .geometry.noff import read_noff, write_noff
 from .geometry.polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
@@ -52,6 +52,7 @@ __all__ = [
     "ShapeRayHit",
     "SimplexMesh",
     "Simulation",
+    "StepError",
     "StepTimings",
     "bivector_pairs",
     "cell_120",

@@ -424,9 +424,10 @@ class Algebra:
         e[..., 0] -= 1.0
         return np.max(np.abs(e), axis=-1)
 
-    def check_rotor(self, R: Any, name: str = "rotor", tol: float = 1e-6) -> Array:
-        """Validate unit rotors: right trailing length, finite, and ``|~R R - 1| <= tol``."""
-        R = as_float_array(name, R, (self.even_size,))
+    def check_rotor(self, R: Any, name: str = "rotor", tol: float = 1e-6, *, single: bool = False) -> Array:
+        """Validate unit rotors: right trailing length, finite, and ``|~R R - 1| <= tol``; with
+        ``single`` exactly one rotor (shape ``(2**(n-1),)``, no batch axes)."""
+        R = as_float_array(name, R, (self.even_size,), exact=single)
         err = self.rotor_norm_error(R)
         if np.any(err > tol):
             worst = float(np.max(err))

@@ -1207,6 +1207,8 @@ class _Row:
     Kt_inv: Array  # (n-1, n-1) inverse of its tangent block
     mass_n: float
     mu: float
+    roll_c: float  # combined rolling resistance and spin friction coefficients, m
+    spin_c: float
     bias_on: float
     bias_off: float
     keep_on: float
@@ -1394,6 +1396,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             i=i, a=a, b=b, colour=col, manifold=int(c.manifold[i]), D=D, G=G, H=H, K01=K[0, 1:].copy(),
             Kt_inv=np.linalg.inv(K[1:, 1:]), mass_n=mass_n,
             mu=mu_k if sliding[i] else max(mu_s, mu_k),
+            roll_c=float(np.sqrt(bodies.rolling_resistance[a] * bodies.rolling_resistance[b])),
+            spin_c=float(np.sqrt(bodies.spin_friction[a] * bodies.spin_friction[b])),
             # speculative rows are rigid and allow closing at gap/dt in every pass; touching rows
             # push overlap beyond the slop out softly in the biased passes only
             bias_on=sep / dt, bias_off=sep / dt if spec else 0.0,
@@ -1505,9 +1509,8 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
     X_unbiased = X.copy()  # the push is what the bias-free passes took out
     if int(settings.bias_free_passes) and batching == "point":
         _shock_propagation(prepared, X, dyn, w)
-    rolling, patch = float(settings.rolling_resistance), float(settings.contact_patch_radius)
-    if rolling > 0.0 or patch > 0.0:
-        _contact_couples(alg, batches, X, inv_I, share, dyn, rolling, patch)
+    if any(r.roll_c > 0.0 or r.spin_c > 0.0 for r in prepared):
+        _contact_couples(alg, batches, X, inv_I, share, dyn)
 
     # a manifold slides (kinetic friction next step) when the sum of its points' friction impulses
     # is at the sum of their limits and some point still slips faster than the slip speed;
@@ -1665,12 +1668,13 @@ def _shock_propagation(prepared: list[_Row], X: Array, dyn: Any, w: int) -> None
 
 
 def _contact_couples(alg: Algebra, batches: list[list[list[_Row]]], X: Array, inv_I: dict[int, Array],
-                     share: dict[tuple[int, int], int], dyn: Any, rolling: float, patch: float) -> None:
+                     share: dict[tuple[int, int], int], dyn: Any) -> None:
     """Rolling resistance and spin friction at single-point contacts that carried a load last step
     (limits from that load, lam_warm), row by row: a couple against the relative angular
     velocity B_B - B_A in the planes of the contact frame, n ^ t_i (rolling, kept within
     b lambda_n: Beer and Johnston's coefficient of rolling resistance b) and t_i ^ t_j (spin, kept
-    within (2/3) mu lambda_n a: Johnson 1985, uniform pressure over a patch of radius a); split
+    within c lambda_n, c the spin-friction coefficient: (2/3) mu a for uniform pressure over a
+    patch of radius a, Johnson 1985), b and c the rows' combined material coefficients; split
     masses as for friction; ``_COUPLE_PASSES`` passes over the batches after the relax passes,
     not warm-started."""
     n = alg.n
@@ -1710,8 +1714,8 @@ def _contact_couples(alg: Algebra, batches: list[list[list[_Row]]], X: Array, in
                     spin = S @ (X[r.b, n:] - X[r.a, n:])
                     old = acc[id(r)]
                     new = old - Ks_inv @ spin
-                    for part, limit in ((slice(0, n - 1), rolling * r.lam_warm),
-                                        (slice(n - 1, None), (2.0 / 3.0) * patch * r.mu * r.lam_warm)):
+                    for part, limit in ((slice(0, n - 1), r.roll_c * r.lam_warm),
+                                        (slice(n - 1, None), r.spin_c * r.lam_warm)):
                         norm = float(np.sqrt(new[part] @ new[part]))
                         if norm > limit:
                             new[part] = new[part] * (limit / norm)

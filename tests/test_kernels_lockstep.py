@@ -88,6 +88,11 @@ def _settled_pile(dim: int) -> Simulation:
 
     sim, _ = SCENES["pile"](dim, 40, 3)
     sim.with_settings(compiled=False)
+    # mixed couple coefficients (rows combine them by the geometric mean), some 0
+    rng = np.random.default_rng(dim)
+    for h in sim.handles:
+        sim.set_material(int(h), rolling_resistance=rng.choice([0.0, 0.0005, 0.002, 0.01]),
+                         spin_friction=rng.choice([0.0, 0.002, 0.004, 0.02]))
     for _ in range(90):
         sim.step()
     return sim

@@ -92,7 +92,8 @@ def random_scene(dim: int, rng: np.random.Generator, count: int = 6, floor: bool
                                                                    else compound)
         sim.add_body(shape, position=rng.uniform(-0.7, 0.7, dim), rotor=alg.rotor(rng.normal(size=alg.k)),
                      velocity=rng.normal(size=dim), angular_velocity=rng.normal(size=alg.k),
-                     friction=rng.uniform(0.2, 0.8), restitution=rng.uniform(0.0, 0.5))
+                     friction=rng.uniform(0.2, 0.8), restitution=rng.uniform(0.0, 0.5),
+                     rolling_resistance=rng.uniform(0.0, 0.004), spin_friction=rng.uniform(0.0, 0.01))
     if floor:
         up = np.zeros(dim)
         up[1] = 1.0

@@ -271,24 +271,20 @@ def test_pyramid_stands(dim):
 # ---------------------------------------------------------------------------------------------
 
 
-def _ball_on_floor(dim: int, r: float = 0.5, mu: float = 0.5):
+def _ball_on_floor(dim: int, r: float = 0.5, mu: float = 0.5, ball: dict | None = None,
+                   floor: dict | None = None):
     sim = Simulation(dim, settings=Settings(sleep_enabled=False))
     up = up_vector(dim)
-    sim.add_body(HalfSpace(up, 0.0), kind="static", friction=mu)
-    h = sim.add_body(Ball(dim, r), position=r * up, friction=mu)
+    sim.add_body(HalfSpace(up, 0.0), kind="static", friction=mu, **(floor or {}))
+    h = sim.add_body(Ball(dim, r), position=r * up, friction=mu, **(ball or {}))
     for _ in range(30):  # settle onto the floor
         sim.step()
     return sim, h
 
 
-@dims()
-def test_rolling_ball_slows_by_the_rolling_resistance(dim):
-    """A ball rolling on a floor slows at b g / (r (1 + I / (m r^2))), I = 2 m r^2 / (n + 2) the
-    n-ball's moment of inertia: the couple b N of rolling resistance (Beer and Johnston, Vector
-    Mechanics for Engineers, sec. 8.9) with the rolling condition v = |B| r (Newton-Euler);
-    within 2 %. Without it (b = 0) the ball keeps its speed."""
-    r = 0.5
-    sim, h = _ball_on_floor(dim, r)
+def _rolling_slope(dim: int, r: float, **materials) -> float:
+    """Fitted rate of change (m/s^2) of the speed of a ball sent rolling at 1 m/s along e0."""
+    sim, h = _ball_on_floor(dim, r, **materials)
     v0 = np.zeros(dim)
     v0[0] = 1.0
     sim.set_velocity(h, velocity=v0)
@@ -297,36 +293,88 @@ def test_rolling_ball_slows_by_the_rolling_resistance(dim):
         sim.step()
         speeds.append(sim.velocity(h)[0])
     t = np.arange(1, 151) * sim.settings.dt
-    slope = np.polyfit(t[30:], np.array(speeds)[30:], 1)[0]  # after the slip phase
-    b = sim.settings.rolling_resistance
-    assert b > 0.0
+    return float(np.polyfit(t[30:], np.array(speeds)[30:], 1)[0])  # after the slip phase
+
+
+@dims()
+@pytest.mark.parametrize("b_ball, b_floor", [(None, None), (0.004, 0.004), (0.008, 0.002)])
+def test_rolling_ball_slows_by_the_rolling_resistance(dim, b_ball, b_floor):
+    """A ball rolling on a floor slows at b g / (r (1 + I / (m r^2))), I = 2 m r^2 / (n + 2) the
+    n-ball's moment of inertia: the couple b N of rolling resistance (Beer and Johnston, Vector
+    Mechanics for Engineers, sec. 8.9) with the rolling condition v = |B| r (Newton-Euler);
+    within 2 %. b is the geometric mean of the two bodies' ``rolling_resistance`` (the default
+    1 mm, equal coefficients, and 8 mm on 2 mm, whose mean is 4 mm)."""
+    r = 0.5
+    materials = {} if b_ball is None else {"ball": {"rolling_resistance": b_ball},
+                                           "floor": {"rolling_resistance": b_floor}}
+    slope = _rolling_slope(dim, r, **materials)
+    b = 0.001 if b_ball is None else np.sqrt(b_ball * b_floor)
     expected = b * G / (r * (1.0 + 2.0 / (dim + 2)))
     assert -slope == pytest.approx(expected, rel=0.02)
 
 
-@dims(3, 4, 5)
-def test_spinning_ball_stops_by_the_patch_friction(dim):
-    """A ball spinning on a floor in a horizontal plane slows at M / I with the spin-friction
-    couple M = (2/3) mu m g a of a patch of radius a under uniform pressure (Johnson, Contact
-    Mechanics, 1985, sec. 7.3) and I = 2 m r^2 / (n + 2); within 2 %; the centre does not move
-    (a pure couple). A point contact alone would let it spin for ever."""
-    r, mu = 0.5, 0.5
-    sim, h = _ball_on_floor(dim, r, mu)
+@dims()
+def test_rolling_resistance_zero_on_either_body_rolls_on(dim):
+    """With rolling_resistance 0 on the ball (the floor keeps its 1 mm) the geometric mean is 0:
+    a rolling ball on level ground keeps its speed (Newton's first law for the rolling body:
+    no horizontal force and no couple act), to 1e-6 m/s^2; the spin friction does not touch a
+    pure roll."""
+    slope = _rolling_slope(dim, 0.5, ball={"rolling_resistance": 0.0})
+    assert abs(slope) < 1e-6
+
+
+def _spin_run(dim: int, r: float, w0: float, steps: int, **materials):
+    sim, h = _ball_on_floor(dim, r, **materials)
     planes = [tuple(p) for p in sim.alg.pairs]
+    j = planes.index((0, 2))  # a plane of the floor's tangent space (the up axis is e1)
     B = np.zeros(sim.alg.k)
-    B[planes.index((0, 2))] = 2.0
+    B[j] = w0
     sim.set_velocity(h, angular_velocity=B)
     x0 = sim.position(h)
     spin = []
-    for _ in range(120):
+    for _ in range(steps):
         sim.step()
-        spin.append(sim.angular_velocity(h)[planes.index((0, 2))])
-    t = np.arange(1, 121) * sim.settings.dt
-    slope = np.polyfit(t[10:], np.array(spin)[10:], 1)[0]
-    a = sim.settings.contact_patch_radius
-    expected = (2.0 / 3.0) * mu * G * a / (2.0 * r * r / (dim + 2))
-    assert -slope == pytest.approx(expected, rel=0.02)
+        spin.append(sim.angular_velocity(h)[j])
+    return sim, h, x0, np.array(spin)
+
+
+@dims(3, 4, 5)
+@pytest.mark.parametrize("c_ball, c_floor", [(None, None), (0.01, 0.01), (0.02, 0.005)])
+def test_spinning_ball_stops_by_the_spin_friction(dim, c_ball, c_floor):
+    """A ball spinning on a floor in a plane of the floor's tangent space (about the normal, in
+    3-D) slows under the constant couple M = c m g, c the geometric mean of the two bodies'
+    ``spin_friction`` (a length; (2/3) mu a for a patch of radius a, Johnson, Contact
+    Mechanics, 1985, sec. 7.3), so it stops at t = I w0 / M (constant torque, Newton-Euler),
+    I = 2 m r^2 / (n + 2) the n-ball's plane moment: the deceleration within 2 %, the stop
+    within one step plus 2 %, and it stays stopped; the centre does not move (a pure couple).
+    A point contact alone would let it spin for ever."""
+    r, w0 = 0.5, 2.0
+    materials = {} if c_ball is None else {"ball": {"spin_friction": c_ball},
+                                           "floor": {"spin_friction": c_floor}}
+    c = 0.016 if c_ball is None else np.sqrt(c_ball * c_floor)
+    rate = c * G / (2.0 * r * r / (dim + 2))  # M / I, rad/s^2
+    t_stop = w0 / rate
+    steps = int(1.5 * t_stop * 60) + 10
+    sim, h, x0, spin = _spin_run(dim, r, w0, steps, **materials)
+    dt = sim.settings.dt
+    t = np.arange(1, steps + 1) * dt
+    moving = spin > 1e-9
+    slope = np.polyfit(t[5:][moving[5:]][:-2], spin[5:][moving[5:]][:-2], 1)[0]
+    assert -slope == pytest.approx(rate, rel=0.02)
+    stopped_at = t[np.argmax(~moving)]
+    assert abs(stopped_at - t_stop) <= dt + 0.02 * t_stop
+    assert np.all(np.abs(spin[~moving]) < 1e-9)  # no reversal: friction only takes spin away
     assert np.linalg.norm(sim.position(h) - x0) < 1e-6
+
+
+@dims(3, 4, 5)
+def test_spin_friction_zero_on_either_body_spins_on(dim):
+    """spin_friction 0 on the floor (the ball keeps its 16 mm): the combined coefficient is 0 and
+    nothing resists the spin of a point contact, so the ball keeps its angular velocity (a free
+    rotation in a plane of the contact's tangent space; Euler's equations for a ball, whose
+    inertia is isotropic, give a constant bivector) to 1e-9 rad/s over 2 s."""
+    _, _, _, spin = _spin_run(dim, 0.5, 2.0, 120, floor={"spin_friction": 0.0})
+    assert np.max(np.abs(spin - 2.0)) < 1e-9
 
 
 # ---------------------------------------------------------------------------------------------

@@ -115,6 +115,14 @@ def test_bad_input_raises_and_leaves_state_unchanged(dim: int, rng: np.random.Ge
         (lambda: sim.add_body("ball"), "shape"),
         (lambda: sim.add_body(Ball(n, 1.0), friction=-0.1), "friction"),
         (lambda: sim.add_body(Ball(n, 1.0), restitution=1.5), "restitution"),
+        (lambda: sim.add_body(Ball(n, 1.0), rolling_resistance=-0.001), "rolling_resistance"),
+        (lambda: sim.add_body(Ball(n, 1.0), spin_friction=np.nan), "spin_friction"),
+        (lambda: sim.add_room(-np.ones(n), np.ones(n), spin_friction=-1.0), "spin_friction"),
+        (lambda: sim.set_material(hs[0], friction=0.2, spin_friction=-0.1), "spin_friction"),
+        (lambda: sim.set_material(hs[0], restitution=1.2, friction=0.1), "restitution"),
+        (lambda: sim.set_material(hs[0], friction=0.8, static_friction=0.6), "static_friction"),
+        (lambda: sim.set_material(hs[0], rolling_resistance="soft"), "rolling_resistance"),
+        (lambda: sim.set_material(10_000, friction=0.1), "handle"),
         (lambda: sim.add_room(np.zeros(n), np.r_[0.0, np.ones(n - 1)]), "lo < hi"),
         (lambda: sim.add_room(-np.ones(n), np.ones(n), restitution=2.0), "restitution"),
         (lambda: sim.add_room(-np.ones(n), np.ones(n + 1)), "hi"),
@@ -305,3 +313,28 @@ def test_bounding_box_user_data_and_sleep_by_hand(dim: int, rng: np.random.Gener
     assert sim.is_awake(h) and sim.position(h)[1] < y0 - 0.5 * 9.81 * 0.25  # fell (0.5 s, minus margin)
     with pytest.raises(InputError, match="only dynamic"):
         sim.put_to_sleep(floor)
+
+
+@dims()
+def test_material_getter_and_setter(dim: int) -> None:
+    """material() reads back add_body's coefficients (defaults: friction 0.5, rolling resistance
+    1 mm, spin friction 16 mm); set_material changes only the given ones; raising friction above
+    the static coefficient raises that too (static friction is never below kinetic: Coulomb's
+    law of friction as stated in any mechanics text); the adapters' RigidBody carries the two
+    couple coefficients to add_body."""
+    from ndrigid.adapters import RigidBody
+
+    sim = Simulation(dim)
+    h = sim.add_body(Ball(dim, 0.5), friction=0.3, static_friction=0.6, spin_friction=0.01)
+    assert sim.material(h) == {"friction": 0.3, "static_friction": 0.6, "restitution": 0.0,
+                               "rolling_resistance": 0.001, "spin_friction": 0.01}
+    sim.set_material(h, restitution=0.4, rolling_resistance=0.0)
+    assert sim.material(h) == {"friction": 0.3, "static_friction": 0.6, "restitution": 0.4,
+                               "rolling_resistance": 0.0, "spin_friction": 0.01}
+    sim.set_material(h, friction=0.9)
+    assert sim.material(h)["static_friction"] == 0.9
+    rb = RigidBody(Ball(dim, 0.5), rolling_resistance=0.002, spin_friction=0.0)
+    h2 = sim.add_body(rb.shape, **rb.body_arguments())
+    assert sim.material(h2)["rolling_resistance"] == 0.002 and sim.material(h2)["spin_friction"] == 0.0
+    with pytest.raises(InputError, match="spin_friction"):
+        RigidBody(Ball(dim, 0.5), spin_friction=-1.0)

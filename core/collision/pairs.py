@@ -30,7 +30,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..algebra import Algebra
-from ..errors import InputError, InputTypeError, as_float_array
+from ..errors import InputError, InputTypeError, as_float_array, vector
 from ..state.components import SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE
 from . import narrowphase as nph
 from .gjk import gjk_distance, penetration
@@ -47,7 +47,7 @@ def read_pose(alg: Algebra, position: Any = None, rotor: Any = None, rotation: A
     """
     n = alg.n
     p_name, r_name, m_name = f"position{prefix}", f"rotor{prefix}", f"rotation{prefix}"
-    p = np.zeros(n) if position is None else as_float_array(p_name, position, (n,))
+    p = np.zeros(n) if position is None else vector(p_name, position, n)
     if p.shape != (n,):
         raise InputError(f"{p_name}: expected shape ({n},), got {p.shape}")
     if rotor is not None and rotation is not None:
@@ -62,7 +62,7 @@ def read_pose(alg: Algebra, position: Any = None, rotor: Any = None, rotation: A
     if rotor is None:
         R = alg.identity_rotor()
     else:
-        R = alg.check_rotor(rotor, r_name)
+        R = alg.check_rotor(rotor, r_name, single=True)
         if R.shape != (alg.even_size,):
             raise InputError(f"{r_name}: expected shape ({alg.even_size},), got {R.shape}")
         R = alg.rotor_normalize(R, 2)

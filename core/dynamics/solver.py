@@ -52,8 +52,9 @@ contacts stated as an implicit (backward-Euler) spring-damper, derived in :func:
    *Rolling resistance and spin friction* (``_contact_couples``): a contact of one point takes
    no torque, so balls rolled and spun on the ground for ever and a pile never came to rest; a
    couple against the bodies' relative rotation, up to ``rolling_resistance`` x load in the
-   planes that hold the normal and (2/3) mu x load x ``contact_patch_radius`` in the planes of
-   the tangent space, stands for the contact patch (Beer and Johnston; Johnson 1985). The load
+   planes that hold the normal and ``spin_friction`` x load in the planes of the tangent space
+   (the bodies' material coefficients, lengths, combined by the geometric mean), stands for the
+   contact patch (Beer and Johnston; Johnson 1985). The load
    is last step's normal impulse, so impacts are not touched.
 5. *Restitution*, one pass: rows whose normal approach speed at the time of impact exceeded
    ``bounce_threshold`` and that took a normal impulse get a separating speed of e times it.
@@ -671,10 +672,11 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     push_dX = dt * (X_biased[moved] - X[moved])
     if bias_free and batching == "point":
         _shock_sweep(a, b, sa, sb, colour, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, Xf, el, dyn)
-    rolling, patch = float(settings.rolling_resistance), float(settings.contact_patch_radius)
-    if rolling > 0.0 or patch > 0.0:
-        _contact_couples(alg, batches, X, D, a, b, inv_I, split_a, split_b, mu, lam_warm, man_id, n_man,
-                         rolling, patch)
+    roll_c = combine_friction(bodies.rolling_resistance[a], bodies.rolling_resistance[b])
+    spin_c = combine_friction(bodies.spin_friction[a], bodies.spin_friction[b])
+    if np.any(roll_c > 0.0) or np.any(spin_c > 0.0):
+        _contact_couples(alg, batches, X, D, a, b, inv_I, split_a, split_b, roll_c, spin_c, lam_warm, man_id,
+                         n_man)
     # a manifold slides (kinetic friction next step) when its total friction is at its limit and
     # it still slips after the solve; one that friction stopped, or that is inside the cone,
     # sticks (static next step). Decided per manifold, not per point: a single point saturating
@@ -802,8 +804,9 @@ def _solve_rows_compiled(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntA
         float(settings.separation_speed_cap),
         float(settings.bounce_threshold), _STICK_TOL, _SLIP_SPEED, _RELAX_TOL, _RELAX_EXTRA, _RELAX_PUSH,
         _SHOCK_RATIO,
-        _SHOCK_PASSES, float(settings.rolling_resistance), float(settings.contact_patch_radius),
-        _COUPLE_PASSES, _TILT_DEADBAND, np.ascontiguousarray(grav_n, dtype=np.float64))
+        _SHOCK_PASSES, combine_friction(bodies.rolling_resistance[a], bodies.rolling_resistance[b]),
+        combine_friction(bodies.spin_friction[a], bodies.spin_friction[b]), _COUPLE_PASSES,
+        _TILT_DEADBAND, np.ascontiguousarray(grav_n, dtype=np.float64))
     moved = np.nonzero(dyn)[0]
     bodies.velocity[moved] = X[moved, :n]
     bodies.angular_velocity[moved] = X[moved, n:]
@@ -1018,19 +1021,21 @@ def _shock_sweep(a: IntArray, b: IntArray, sa: NDArray[np.bool_], sb: NDArray[np
 
 
 def _contact_couples(alg: Algebra, batches: list[_Batch], X: Array, D: Array, a: IntArray, b: IntArray,
-                     inv_I: Array, split_a: Array, split_b: Array, mu: Array, load: Array, man_id: IntArray,
-                     n_man: int, rolling: float, patch: float) -> None:
+                     inv_I: Array, split_a: Array, split_b: Array, roll_c: Array, spin_c: Array, load: Array,
+                     man_id: IntArray, n_man: int) -> None:
     """Rolling resistance and spin friction at single-point contacts: a couple against the
     relative angular velocity B_B - B_A of the two bodies, in the planes n ^ t_i (rolling) at most
-    b lambda, and in the planes t_i ^ t_j of the tangent space (spin) at most (2/3) mu lambda a,
-    with lambda the row's normal impulse of the last step (``load``); changes X in place.
+    b lambda, and in the planes t_i ^ t_j of the tangent space (spin) at most c lambda, with
+    lambda the row's normal impulse of the last step (``load``) and b, c the row's combined
+    ``rolling_resistance`` and ``spin_friction`` (``roll_c``, ``spin_c``, m); changes X in place.
 
     A point contact takes no torque, so a ball would roll and spin on the ground for ever and a
     pile of balls never comes to rest. A real contact is a small patch: its pressure, shifted
     ahead of a rolling body, gives a couple b N with b the coefficient of rolling resistance, a
     length (Beer and Johnston, "Vector Mechanics for Engineers", sec. 8.9), and its friction a
-    couple up to (2/3) mu N a against spin about the normal under uniform pressure over a patch
-    of radius a (Johnson, "Contact Mechanics", Cambridge University Press 1985, sec. 7.3). In n-D
+    couple up to c N against spin about the normal, c a length as well (for uniform pressure over
+    a patch of radius a, c = (2/3) mu a: Johnson, "Contact Mechanics", Cambridge University
+    Press 1985, sec. 7.3). In n-D
     the n - 1 planes n ^ t_i and the (n-1)(n-2)/2 planes t_i ^ t_j (t the tangent basis) make an
     orthonormal bivector basis S adapted to the contact (2-D: one rolling plane, no spin).
 
@@ -1061,8 +1066,8 @@ def _contact_couples(alg: Algebra, batches: list[_Batch], X: Array, D: Array, a:
     Ks = (split_a[sel, None, None] * np.einsum("mdi,mei->mde", S, RA)
           + split_b[sel, None, None] * np.einsum("mdi,mei->mde", S, RB))
     Ks_inv = np.linalg.inv(Ks)
-    roll_limit = rolling * load[sel]
-    spin_limit = (2.0 / 3.0) * patch * mu[sel] * load[sel]
+    roll_limit = roll_c[sel] * load[sel]
+    spin_limit = spin_c[sel] * load[sel]
     acc = np.zeros(S.shape[:2])
     r = n - 1
     # the selected rows of each batch (rows are sorted by batch)

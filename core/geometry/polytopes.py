@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import InputError, dimension, positive_scalar
+from ..errors import InputError, dimension, shape_size
 from .shapes import Box, ConvexPolytope
 
 Array = NDArray[np.float64]
@@ -35,8 +35,8 @@ def _scale(edge: Any, circumradius: Any, unit_edge: float, unit_radius: float) -
             f"edge, circumradius: give one size, not both (got edge={edge!r}, circumradius={circumradius!r})"
         )
     if circumradius is not None:
-        return positive_scalar("circumradius", circumradius) / unit_radius
-    return positive_scalar("edge", 1.0 if edge is None else edge) / unit_edge
+        return shape_size("circumradius", circumradius) / unit_radius
+    return shape_size("edge", 1.0 if edge is None else edge) / unit_edge
 
 
 def _signed(base: tuple[float, ...]) -> list[tuple[float, ...]]:

@@ -51,7 +51,18 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from ..algebra import Algebra
-from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..errors import (
+    MAX_MAGNITUDE,
+    MIN_SIZE,
+    InputError,
+    InputTypeError,
+    as_float_array,
+    dimension,
+    numeric_array,
+    positive_scalar,
+    shape_size,
+    vector,
+)
 from .mass import MassProperties, boundary_moments, combine_mass_properties, resolve_density
 
 Array = NDArray[np.float64]
@@ -84,10 +95,10 @@ def _frozen(a: Any, dtype: Any = np.float64) -> Any:
 
 def _points(name: str, value: Any) -> Array:
     """(N, n) float points with n >= 2, finite."""
-    arr = np.asarray(value, dtype=np.float64) if not isinstance(value, np.ndarray) else value
+    arr = numeric_array(name, value, "an (N, n) array of points")
     if arr.ndim != 2:
         raise InputError(f"{name}: expected an (N, n) array of points, got shape {np.shape(arr)}")
-    arr = as_float_array(name, arr, (arr.shape[1],))
+    arr = as_float_array(name, arr, (arr.shape[1],), bound=MAX_MAGNITUDE)
     if arr.shape[1] < 2:
         raise InputError(f"{name}: expected points of dimension n >= 2, got n = {arr.shape[1]}")
     return arr
@@ -256,7 +267,7 @@ class Ball(Shape):
 
     def __init__(self, dim: int, radius: float) -> None:
         n = dimension("dim", dim)
-        r = positive_scalar("radius", radius)
+        r = shape_size("radius", radius)
         self._set(_dim=n, radius=r, _cache={})
 
     def __repr__(self) -> str:
@@ -611,11 +622,7 @@ class Box(ConvexPolytope):
     half_extents: Array
 
     def __init__(self, half_extents: Any) -> None:
-        h = (
-            np.asarray(half_extents, dtype=np.float64)
-            if not isinstance(half_extents, np.ndarray)
-            else half_extents
-        )
+        h = numeric_array("half_extents", half_extents, "one half-extent per axis, shape (n,)")
         if h.ndim != 1 or h.shape[0] < 2:
             raise InputError(
                 f"half_extents: expected one half-extent per axis, shape (n,) with n >= 2, "
@@ -625,6 +632,11 @@ class Box(ConvexPolytope):
         if np.any(h <= 0.0):
             i = int(np.flatnonzero(h <= 0.0)[0])
             raise InputError(f"half_extents: expected every half-extent > 0, got {float(h[i])!r} on axis {i}")
+        if np.any((h < MIN_SIZE) | (h > MAX_MAGNITUDE)):
+            i = int(np.flatnonzero((h < MIN_SIZE) | (h > MAX_MAGNITUDE))[0])
+            raise InputError(f"half_extents: expected every half-extent in [{MIN_SIZE:g}, "
+                             f"{MAX_MAGNITUDE:g}] m, "
+                             f"got {float(h[i])!r} on axis {i}")
         n = h.shape[0]
         idx = np.arange(1 << n)
         bits = (idx[:, None] >> np.arange(n)[None, :]) & 1
@@ -915,9 +927,9 @@ class Compound(Shape):
                     f"pieces[{i}]: expected a {n}-D shape like pieces[0], got a {shape.dim}-D one"
                 )
             alg = Algebra(n)
-            pos.append(as_float_array(f"pieces[{i}] position", piece[1], (n,)))
+            pos.append(vector(f"pieces[{i}] position", piece[1], n))
             R = alg.identity_rotor() if len(piece) == 2 or piece[2] is None else piece[2]
-            rot.append(alg.check_rotor(R, f"pieces[{i}] rotor"))
+            rot.append(alg.check_rotor(R, f"pieces[{i}] rotor", single=True))
             shapes.append(shape)
         assert n is not None
         alg = Algebra(n)
@@ -1011,21 +1023,20 @@ class HalfSpace(Shape):
     offset: float
 
     def __init__(self, normal: Any, offset: float = 0.0) -> None:
-        u = np.asarray(normal, dtype=np.float64) if not isinstance(normal, np.ndarray) else normal
+        u = numeric_array("normal", normal, "a vector of shape (n,)")
         if u.ndim != 1 or u.shape[0] < 2:
             raise InputError(f"normal: expected a vector of shape (n,) with n >= 2, got shape {np.shape(u)}")
         u = as_float_array("normal", u, (u.shape[0],))
-        try:
-            d = float(offset)
-        except (TypeError, ValueError) as exc:
-            raise InputTypeError(
-                f"offset: expected a number, got {type(offset).__name__} {offset!r}"
-            ) from exc
-        if not math.isfinite(d):
-            raise InputError(f"offset: expected a finite number, got {d!r}")
-        norm = float(np.linalg.norm(u))
-        if not norm > 0.0:
+        d = float(as_float_array("offset", offset, (), exact=True))
+        scale = float(np.max(np.abs(u)))
+        if not scale > 0.0:
             raise InputError(f"normal: expected a non-zero vector, got {u.tolist()}")
+        # scaled first, so that the norm of a long normal (components near 1e200) does not overflow
+        u, d = u / scale, d / scale
+        norm = float(np.linalg.norm(u))
+        if abs(d / norm) > MAX_MAGNITUDE:
+            raise InputError(f"offset: expected a plane within {MAX_MAGNITUDE:g} m of the origin, got "
+                             f"{d / norm!r} m (offset / |normal|)")
         self._set(_dim=u.shape[0], _cache={}, normal=_frozen(u / norm), offset=d / norm)
 
     def __repr__(self) -> str:

@@ -352,9 +352,10 @@ def _shock(A, B, sA, sB, col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, rat
 
 
 @njit(cache=True)
-def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
+def _couples(A, B, D, inv_I, roll_c, spin_c, load, man, nman, X, npasses):
     """Rolling resistance and spin friction at single-point contacts that carried a load last step
-    (solver.py, _contact_couples: same rows, same order); changes X in place."""
+    (solver.py, _contact_couples: same rows, same order; ``roll_c``, ``spin_c`` the rows' combined
+    coefficients, m, in sorted order); changes X in place."""
     per_man = np.zeros(nman, np.int64)
     for q in range(A.shape[0]):
         per_man[man[q]] += 1
@@ -440,7 +441,7 @@ def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
             for part in range(2):
                 lo = 0 if part == 0 else T
                 hi = T if part == 0 else K
-                lim = rolling * load[q] if part == 0 else (2.0 / 3.0) * patch * mu[q] * load[q]
+                lim = roll_c[q] * load[q] if part == 0 else spin_c[q] * load[q]
                 nrm2 = 0.0
                 for d in range(lo, hi):
                     nrm2 += new[d] * new[d]
@@ -466,7 +467,7 @@ def _couples(A, B, D, inv_I, mu, load, man, nman, X, rolling, patch, npasses):
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
           allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, relax_push, shock_ratio,
-          shock_passes, rolling, patch, couple_passes, tilt_dead, grav_n):
+          shock_passes, rolling_in, spin_in, couple_passes, tilt_dead, grav_n):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
     Returns (normal impulses (M,), world tangent impulses (M, n), sliding flags (M,), push
@@ -500,6 +501,8 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     row_col = np.empty(M, np.int64)
     mu = np.empty(M)
     mu_tol = np.empty(M)
+    roll_c = np.empty(M)
+    spin_c = np.empty(M)
     sl = np.empty(M, np.bool_)
     sep = np.empty(M)
     e = np.empty(M)
@@ -613,6 +616,8 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         else:
             mu[q] = max(mu_s[i], mu_k[i])
         mu_tol[q] = mu[q] * (1.0 + stick_tol)
+        roll_c[q] = rolling_in[i]
+        spin_c[q] = spin_in[i]
         # bias and softness
         sp = -depth[i]
         sep[q] = sp
@@ -723,8 +728,13 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     if bias_free > 0:
         _shock(A, B, sA, sB, row_col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, shock_ratio,
                shock_passes)
-    if rolling > 0.0 or patch > 0.0:
-        _couples(A, B, D, inv_I, mu, lam_warm, man, nman, X, rolling, patch, couple_passes)
+    couples_on = False
+    for q in range(M):
+        if roll_c[q] > 0.0 or spin_c[q] > 0.0:
+            couples_on = True
+            break
+    if couples_on:
+        _couples(A, B, D, inv_I, roll_c, spin_c, lam_warm, man, nman, X, couple_passes)
 
     # sliding, decided per manifold: all its friction at the limit and a slip left after the solve
     max_slip2 = np.zeros(nman)
@@ -828,5 +838,5 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 30.0, 1, 0.001,
-          0.01, 1, 0.0005, f1.copy())
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 30.0, 1,
+          f1 + 0.001, f1 + 0.004, 1, 0.0005, f1.copy())

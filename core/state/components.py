@@ -14,7 +14,8 @@ components last). Columns are grouped as
 * collider:        ``shape_id``, ``shape_kind``, ``radius``, ``half_extents`` (n), ``layer``,
   ``mask``, ``sensor``, and the material ``friction`` (kinetic), ``static_friction`` (the solver
   uses it while a contact point sticks; add_body sets it equal to ``friction`` unless given),
-  ``restitution``;
+  ``restitution``, ``rolling_resistance`` and ``spin_friction`` (lengths, m: the couples of a
+  one-point contact per unit normal force);
 * sleeping:        ``awake``, ``rest_time``.
 
 Bookkeeping that no system touches on a hot path (the handle of each row, the shape objects, user
@@ -152,6 +153,8 @@ def body_columns(alg: Algebra) -> dict[str, tuple[tuple[int, ...], Any, Any]]:
         "friction": ((), np.float64, 0.5),
         "static_friction": ((), np.float64, 0.5),
         "restitution": ((), np.float64, 0.0),
+        "rolling_resistance": ((), np.float64, 0.001),
+        "spin_friction": ((), np.float64, 0.016),
         # sleeping
         "awake": ((), np.bool_, True),
         "rest_time": ((), np.float64, 0.0),

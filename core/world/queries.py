@@ -29,7 +29,7 @@ from numpy.typing import NDArray
 
 from ..collision import broadphase as bp
 from ..collision import narrowphase as nph
-from ..errors import InputError, InputTypeError, as_float_array
+from ..errors import InputError, InputTypeError, vector
 from ..state.components import ALL_LAYERS, SHAPE_BALL, SHAPE_BOX, SHAPE_HALFSPACE, SHAPE_POLYTOPE, STATIC
 
 if TYPE_CHECKING:
@@ -72,8 +72,8 @@ def _layer_mask(value: Any) -> int:
 
 def _ray(sim: Simulation, origin: Any, direction: Any, max_distance: Any) -> tuple[Array, Array, float]:
     n = sim.dim
-    o = as_float_array("origin", origin, (n,))
-    d = as_float_array("direction", direction, (n,))
+    o = vector("origin", origin, n)
+    d = vector("direction", direction, n, bound=None)
     if o.ndim != 1 or d.ndim != 1:
         raise InputError(f"origin, direction: expected single vectors of shape ({n},), "
                          f"got {o.shape} and {d.shape}")
@@ -287,7 +287,7 @@ def _handles_of(sim: Simulation, rows: IntArray) -> IntArray:
 def bodies_containing_point(sim: Simulation, point: Any, layer_mask: Any = ALL_LAYERS) -> IntArray:
     """Handles (sorted, int64) of the bodies whose solid contains the world point (n,)."""
     mask = _layer_mask(layer_mask)
-    x = as_float_array("point", point, (sim.dim,))
+    x = vector("point", point, sim.dim)
     if x.ndim != 1:
         raise InputError(f"point: expected a single point of shape ({sim.dim},), got shape {x.shape}")
     rows = _rows(sim, mask)
@@ -318,8 +318,8 @@ def bodies_overlapping_box(sim: Simulation, lo: Any, hi: Any, layer_mask: Any = 
     """Handles (sorted) of the bodies whose world bounding box overlaps the box [lo, hi] (each (n,))."""
     mask = _layer_mask(layer_mask)
     n = sim.dim
-    lo_ = as_float_array("lo", lo, (n,))
-    hi_ = as_float_array("hi", hi, (n,))
+    lo_ = vector("lo", lo, n, bound=None)
+    hi_ = vector("hi", hi, n, bound=None)
     if lo_.ndim != 1 or hi_.ndim != 1:
         raise InputError(f"lo, hi: expected single corners of shape ({n},), got {lo_.shape} and {hi_.shape}")
     if np.any(lo_ > hi_):
@@ -346,10 +346,11 @@ def bodies_overlapping_shape(sim: Simulation, shape: Any, position: Any, rotor: 
     if sdim != n:
         raise InputError(f"shape: expected a shape of dimension {n}, got one of dimension {sdim}")
     kind = shape_kind(shape)
-    p = as_float_array("position", position, (n,))
+    p = vector("position", position, n)
     if p.ndim != 1:
         raise InputError(f"position: expected shape ({n},), got {p.shape}")
-    R = alg.identity_rotor() if rotor is None else alg.rotor_normalize(alg.check_rotor(rotor, "rotor"), 2)
+    R = (alg.identity_rotor() if rotor is None
+         else alg.rotor_normalize(alg.check_rotor(rotor, "rotor", single=True), 2))
     M = alg.rotor_to_matrix(R)
     rows = _rows(sim, mask)
     if kind == SHAPE_HALFSPACE:

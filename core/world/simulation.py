@@ -18,6 +18,7 @@ the simulation exactly as it was.
 
 from __future__ import annotations
 
+import copy
 import math
 import time
 from collections.abc import Callable
@@ -29,7 +30,16 @@ from numpy.typing import NDArray
 
 from ..algebra import Algebra
 from ..dynamics import integrate as _integrate
-from ..errors import InputError, InputTypeError, as_float_array, dimension, positive_scalar
+from ..errors import (
+    MAX_MAGNITUDE,
+    InputError,
+    InputTypeError,
+    StepError,
+    as_float_array,
+    dimension,
+    positive_scalar,
+    vector,
+)
 from ..geometry.shapes import HalfSpace
 from ..state.components import (
     ALL_LAYERS,
@@ -51,6 +61,9 @@ from . import queries
 from .stages import default_stages, removal_events
 
 Array = NDArray[np.float64]
+
+#: the material columns of a body (Simulation.material / set_material)
+_MATERIAL = ("friction", "static_friction", "restitution", "rolling_resistance", "spin_friction")
 
 
 @dataclass(frozen=True)
@@ -88,15 +101,6 @@ class Settings:
         speculative_margin: contacts are kept while the gap is below this, m (continuous collision:
             a fast body is stopped at the surface instead of passing through).
         broadphase_margin: how much each body's bounding box is fattened, m.
-
-    Rolling and spin (a contact stands for a small patch, so it resists rotation a little)
-        rolling_resistance: coefficient of rolling resistance b, m: every contact resists rolling
-            (relative rotation in the planes that hold its normal) with a couple up to b lambda_n
-            (Beer and Johnston's rolling resistance), so balls roll to a stop. 0 turns it off.
-        contact_patch_radius: radius a of the patch, m: spin (rotation in the planes of the
-            tangent space) is resisted by a friction couple up to (2/3) mu lambda_n a (Johnson
-            1985, uniform pressure), so bodies stop spinning on point contacts. 0 turns it off.
-            No effect in 2-D, where the tangent space is a line.
 
     Bounce
         bounce_threshold: normal approach speeds below this do not bounce, m/s.
@@ -158,14 +162,17 @@ class Settings:
       within 0.05 % of e^(2k) h for the first three bounces and rests after 1.25 s; 0.5 and
       0.2 m/s rest after 1.32 and 1.33 s with the same heights (the extra bounces are below 5 cm);
       2 m/s drops the third bounce.
-    * ``rolling_resistance`` 1 mm and ``contact_patch_radius`` 1 cm ("piles": the 4-D bin of 200
-      balls and boxes, 90 % asleep this long after its energy fell below 1 % of its peak): with
-      both 6.55 s (seed 0; 5.9-10.9 s over seven seeds); without rolling resistance 10.65 s,
-      with 0.5 mm 8.78 s, with 2 mm 4.77 s (but 4.8-13.2 s over the seven seeds, no surer);
-      without the patch never within 30 s (balls spin on their point contacts), 0.5 cm 7.30 s,
-      2 cm 5.13 s. 1 mm lies between the
-      rolling resistance of steel on steel and of steel on wood (handbook tables, from memory:
-      about 0.5 and 1.5 mm); a 0.5 m ball rolling at 1 m/s rolls 36 m before it stops.
+    * The material defaults of :meth:`Simulation.add_body`, ``rolling_resistance`` 1 mm and
+      ``spin_friction`` 16 mm ("piles": the 4-D bin of 200 balls and boxes, 90 % asleep this
+      long after its energy fell below 1 % of its peak; the variants set the coefficient on
+      every body): with both 7.47 s (seed 0; 5.5-9.6 s over seeds 0-6); spin friction 4 mm
+      5.2-28.0 s over seeds 0-4, 8 mm 4.1-13.5 s, 12 mm 5.8-12.7 s, 24 mm 5.0-7.8 s, none never
+      within 30 s (balls spin on their point contacts); rolling resistance 0 11.2 s (seed 0),
+      0.5 mm 16.1 s, 2 mm 16.0 s. The time is chaotic in the seed, so the spin coefficient is
+      the smallest whose worst seed stays under 10 s; 16 mm is (2/3) mu a for a patch of radius 4 cm
+      at mu = 0.6 (Johnson 1985). 1 mm lies between the rolling resistance of steel on steel and
+      of steel on wood (handbook tables, from memory: about 0.5 and 1.5 mm); a 0.5 m ball rolling
+      at 1 m/s rolls 36 m before it stops.
     * ``sleep_enabled`` True, ``rest_speed`` 0.05 m/s, ``rest_time`` 0.5 s: the stack falls
       asleep after 0.82-1.10 s; 0.01 m/s takes 1.8-3.8 s, a rest time of 1 s 1.3-1.6 s.
     """
@@ -185,8 +192,6 @@ class Settings:
     speculative_margin: float = 0.1
     broadphase_margin: float = 0.05
     bounce_threshold: float = 1.0
-    rolling_resistance: float = 0.001
-    contact_patch_radius: float = 0.01
     sleep_enabled: bool = True
     rest_speed: float = 0.05
     rest_time: float = 0.5
@@ -195,7 +200,7 @@ class Settings:
         for name in ("dt", "spring_frequency", "spring_damping_ratio", "separation_speed_cap", "rest_time"):
             positive_scalar(f"settings.{name}", getattr(self, name))
         for name in ("overlap_allowance", "speculative_margin", "broadphase_margin", "bounce_threshold",
-                     "rest_speed", "rolling_resistance", "contact_patch_radius"):
+                     "rest_speed"):
             positive_scalar(f"settings.{name}", getattr(self, name), allow_zero=True)
         for name in ("substeps", "solver_passes"):
             v = getattr(self, name)
@@ -253,7 +258,7 @@ class Simulation:
             g = np.zeros(n)
             g[1] = -9.81
         else:
-            g = as_float_array("gravity", gravity, (n,)).copy()
+            g = vector("gravity", gravity, n).copy()
         self.settings = (settings or Settings()).validated()
         self.alg = alg
         self.dim = n
@@ -288,6 +293,8 @@ class Simulation:
         friction: float = 0.5,
         restitution: float = 0.0,
         static_friction: float | None = None,
+        rolling_resistance: float = 0.001,
+        spin_friction: float = 0.016,
         layer: int = 1,
         mask: int = ALL_LAYERS,
         linear_damping: float = 0.0,
@@ -312,6 +319,12 @@ class Simulation:
                 ``friction`` is the kinetic coefficient (sliding contacts).
             static_friction: coefficient while a contact point sticks (>= friction); None means
                 "same as friction".
+            rolling_resistance: coefficient of rolling resistance, m (>= 0): a one-point contact
+                resists rolling with a couple up to this times its normal force (default 1 mm).
+            spin_friction: coefficient of spin (torsional) friction, m (>= 0): a one-point contact
+                resists spinning in the planes of its tangent space with a couple up to this times
+                its normal force (default 16 mm). Both combine per contact by the geometric mean,
+                like friction; 0 on either body turns the couple off for its contacts.
             layer, mask: collision filter bits: A and B collide iff (A.layer & B.mask) and
                 (B.layer & A.mask) are both non-zero.
             linear_damping, angular_damping: rates >= 0, 1/s.
@@ -321,7 +334,8 @@ class Simulation:
         rotor = self._rotor_of(rotor, rotation)
         row_values = self._body_values(shape, position, rotor, velocity, angular_velocity, density, mass,
                                        kind, friction, restitution, layer, mask, linear_damping,
-                                       angular_damping, sensor, static_friction)
+                                       angular_damping, sensor, static_friction,
+                                       rolling_resistance, spin_friction)
         sid = self.info.shape_id(shape)
         row_values["shape_id"] = sid
         row = self.bodies.append(row_values)
@@ -336,7 +350,8 @@ class Simulation:
     def _body_values(self, shape: Any, position: Any, rotor: Any, velocity: Any, angular_velocity: Any,
                      density: Any, mass: Any, kind: str, friction: Any, restitution: Any, layer: Any,
                      mask: Any, linear_damping: Any, angular_damping: Any, sensor: Any,
-                     static_friction: Any = None) -> dict[str, Any]:
+                     static_friction: Any = None, rolling_resistance: Any = 0.001,
+                     spin_friction: Any = 0.016) -> dict[str, Any]:
         """Validate every argument of add_body and build the row (no state is touched here)."""
         alg, n = self.alg, self.dim
         sdim = getattr(shape, "dim", None)
@@ -348,13 +363,13 @@ class Simulation:
         if kind not in KIND_NAMES:
             raise InputError(f"kind: expected one of {sorted(KIND_NAMES)}, got {kind!r}")
         code = KIND_NAMES[kind]
-        pos = np.zeros(n) if position is None else as_float_array("position", position, (n,))
-        R = alg.identity_rotor() if rotor is None else alg.check_rotor(rotor, "rotor")
+        pos = np.zeros(n) if position is None else vector("position", position, n)
+        R = alg.identity_rotor() if rotor is None else alg.check_rotor(rotor, "rotor", single=True)
         if alg.rotor_norm_error(R) > 1e-14:  # keep rotors that are unit to rounding bit for bit
             R = alg.rotor_normalize(R, steps=2)
-        vel = np.zeros(n) if velocity is None else as_float_array("velocity", velocity, (n,))
-        om = np.zeros(alg.k) if angular_velocity is None else as_float_array(
-            "angular_velocity", angular_velocity, (alg.k,))
+        vel = np.zeros(n) if velocity is None else vector("velocity", velocity, n)
+        om = np.zeros(alg.k) if angular_velocity is None else vector(
+            "angular_velocity", angular_velocity, alg.k)
         if density is not None and mass is not None:
             raise InputError("density, mass: expected at most one of them, got both")
         # static and kinematic bodies ignore mass and density (0 is accepted there), dynamic ones
@@ -373,6 +388,10 @@ class Simulation:
                                                                 allow_zero=True)
         if fs < fr:
             raise InputError(f"static_friction: expected a value >= friction ({fr!r}), got {fs!r}")
+        rr = positive_scalar("rolling_resistance", rolling_resistance, allow_zero=True)
+        sf = positive_scalar("spin_friction", spin_friction, allow_zero=True)
+        if not isinstance(sensor, (bool, np.bool_)):
+            raise InputTypeError(f"sensor: expected True or False, got {type(sensor).__name__} {sensor!r}")
         ld = positive_scalar("linear_damping", linear_damping, allow_zero=True)
         ad = positive_scalar("angular_damping", angular_damping, allow_zero=True)
         for name, bits in (("layer", layer), ("mask", mask)):
@@ -383,7 +402,8 @@ class Simulation:
         kind_code = shape_kind(shape)
         values: dict[str, Any] = {
             "position": pos, "rotor": R, "rotation": alg.rotor_to_matrix(R), "kind": code,
-            "friction": fr, "static_friction": fs, "restitution": re, "layer": int(layer), "mask": int(mask),
+            "friction": fr, "static_friction": fs, "restitution": re, "rolling_resistance": rr,
+            "spin_friction": sf, "layer": int(layer), "mask": int(mask),
             "linear_damping": ld, "angular_damping": ad, "sensor": bool(sensor), "shape_kind": kind_code,
             "radius": float(shape.bounding_radius) if kind_code != SHAPE_HALFSPACE else np.inf,
         }
@@ -397,7 +417,14 @@ class Simulation:
                                  "'kinematic', got 'dynamic'")
             if density is None and mass is None:
                 density = 1000.0
-            mp = shape.mass_properties(density=density, mass=mass)
+            with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+                mp = shape.mass_properties(density=density, mass=mass)
+            moments = np.asarray(mp.principal_moments, dtype=np.float64)
+            if not (np.isfinite(mp.mass) and mp.mass > 0.0 and np.all(np.isfinite(moments))
+                    and np.all(moments > 0.0) and np.all(np.isfinite(1.0 / moments))):
+                raise InputError(f"density, mass: the body's mass {mp.mass!r} kg and plane moments "
+                                 f"{moments.tolist()} must be finite and > 0; expected a density or mass "
+                                 f"that fits the shape's size")
             values["inv_mass"] = 1.0 / mp.mass
             values["inv_inertia"] = 1.0 / np.asarray(mp.principal_moments, dtype=np.float64)
             values["principal_rotor"] = np.asarray(mp.principal_rotor, dtype=np.float64)
@@ -413,7 +440,8 @@ class Simulation:
         return values
 
     def add_room(self, lo: Any, hi: Any, *, ceiling: bool = False, friction: float = 0.5,
-                 restitution: float = 0.0, layer: int = 1, mask: int = ALL_LAYERS) -> NDArray[np.int64]:
+                 restitution: float = 0.0, rolling_resistance: float = 0.001, spin_friction: float = 0.016,
+                 layer: int = 1, mask: int = ALL_LAYERS) -> NDArray[np.int64]:
         """Add static half-spaces that keep bodies inside the box ``lo <= x <= hi``: a floor at
         ``lo[1]``, a wall on each side of every other axis and, with ``ceiling``, a ceiling at
         ``hi[1]``. Returns their handles (floor first, then the walls by axis, low side first).
@@ -421,7 +449,8 @@ class Simulation:
         Args:
             lo, hi: (n,) corners of the room, lo < hi on every axis.
             ceiling: also close the room at the top.
-            friction, restitution, layer, mask: as :meth:`add_body`, for every face.
+            friction, restitution, rolling_resistance, spin_friction, layer, mask: as
+                :meth:`add_body`, for every face.
 
         Bad input raises before anything is added.
 
@@ -430,8 +459,8 @@ class Simulation:
         [0, 1, 2, 3, 4]
         """
         n = self.dim
-        a = as_float_array("lo", lo, (n,))
-        b = as_float_array("hi", hi, (n,))
+        a = vector("lo", lo, n)
+        b = vector("hi", hi, n)
         if not np.all(a < b):
             raise InputError(f"lo, hi: expected lo < hi on every axis, got lo={a.tolist()}, hi={b.tolist()}")
         faces = [HalfSpace.below(n, 1, float(a[1]))]
@@ -441,11 +470,12 @@ class Simulation:
                           HalfSpace.above(n, axis, float(b[axis]))]
         if ceiling:
             faces.append(HalfSpace.above(n, 1, float(b[1])))
-        material = {"kind": "static", "friction": friction, "restitution": restitution, "layer": layer,
+        material = {"kind": "static", "friction": friction, "restitution": restitution,
+                    "rolling_resistance": rolling_resistance, "spin_friction": spin_friction, "layer": layer,
                     "mask": mask}
         # every argument is checked on the first face before any is added
         self._body_values(faces[0], None, None, None, None, None, None, "static", friction, restitution,
-                          layer, mask, 0.0, 0.0, False)
+                          layer, mask, 0.0, 0.0, False, None, rolling_resistance, spin_friction)
         return np.array([self.add_body(f, **material) for f in faces], dtype=np.int64)
 
     def remove_body(self, handle: int) -> None:
@@ -690,7 +720,7 @@ class Simulation:
             raise InputError("rotor, rotation: expected at most one of a rotor and a rotation matrix, "
                              "got both")
         n = self.dim
-        M = as_float_array("rotation", rotation, (n, n))
+        M = as_float_array("rotation", rotation, (n, n), exact=True)
         if M.shape != (n, n):
             raise InputError(f"rotation: expected shape ({n}, {n}), got {M.shape}")
         return self.alg.matrix_to_rotor(M, name="rotation")
@@ -700,8 +730,8 @@ class Simulation:
         ``rotation``); wakes it."""
         r = self.row(handle)
         rotor = self._rotor_of(rotor, rotation)
-        pos = None if position is None else as_float_array("position", position, (self.dim,))
-        R = None if rotor is None else self.alg.check_rotor(rotor, "rotor")
+        pos = None if position is None else vector("position", position, self.dim)
+        R = None if rotor is None else self.alg.check_rotor(rotor, "rotor", single=True)
         if R is not None and self.alg.rotor_norm_error(R) > 1e-14:
             R = self.alg.rotor_normalize(R, 2)
         b = self.bodies
@@ -712,12 +742,50 @@ class Simulation:
             b.rotation[r] = self.alg.rotor_to_matrix(R)
         self._wake_touching(r)
 
+    def material(self, handle: int) -> dict[str, float]:
+        """The body's material coefficients: friction, static_friction, restitution (no units) and
+        rolling_resistance, spin_friction (m)."""
+        r = self.row(handle)
+        b = self.bodies
+        return {name: float(getattr(b, name)[r]) for name in _MATERIAL}
+
+    def set_material(self, handle: int, *, friction: Any = None, static_friction: Any = None,
+                     restitution: Any = None, rolling_resistance: Any = None,
+                     spin_friction: Any = None) -> None:
+        """Change a body's material coefficients (those given; None keeps the current value), from
+        the next step on. The ranges are those of :meth:`add_body`; the new ``static_friction``
+        must still be at least ``friction``. Bad input changes nothing.
+
+        >>> from ndrigid.core import Ball
+        >>> sim = Simulation(3)
+        >>> h = sim.add_body(Ball(3, 0.5))
+        >>> sim.set_material(h, friction=0.9, spin_friction=0.0)
+        >>> sim.material(h)["static_friction"]  # raised with friction, which it may not be below
+        0.9
+        """
+        r = self.row(handle)
+        given = {"friction": friction, "static_friction": static_friction, "restitution": restitution,
+                 "rolling_resistance": rolling_resistance, "spin_friction": spin_friction}
+        new = self.material(handle)
+        for name, value in given.items():
+            if value is not None:
+                new[name] = positive_scalar(name, value, allow_zero=True)
+        if new["restitution"] > 1.0:
+            raise InputError(f"restitution: expected a value in [0, 1] (above 1 every bounce gains "
+                             f"energy), got {new['restitution']!r}")
+        if static_friction is None and friction is not None:
+            new["static_friction"] = max(new["static_friction"], new["friction"])
+        if new["static_friction"] < new["friction"]:
+            raise InputError(f"static_friction: expected a value >= friction ({new['friction']!r}), got "
+                             f"{new['static_friction']!r}")
+        for name, value in new.items():
+            getattr(self.bodies, name)[r] = value
+
     def set_velocity(self, handle: int, velocity: Any = None, angular_velocity: Any = None) -> None:
         """Set a dynamic or kinematic body's velocity and/or angular velocity bivector; wakes it."""
         r = self.row(handle)
-        v = None if velocity is None else as_float_array("velocity", velocity, (self.dim,))
-        w = None if angular_velocity is None else as_float_array("angular_velocity", angular_velocity,
-                                                                  (self.alg.k,))
+        v = None if velocity is None else vector("velocity", velocity, self.dim)
+        w = None if angular_velocity is None else vector("angular_velocity", angular_velocity, self.alg.k)
         b = self.bodies
         if b.kind[r] == STATIC and (v is not None and np.any(v) or w is not None and np.any(w)):
             raise InputError("handle: expected a dynamic or kinematic body, got a static one (static bodies "
@@ -731,8 +799,8 @@ class Simulation:
     def apply_force(self, handle: int, force: Any, point: Any = None) -> None:
         """Add a force (n,) for the next step, at a world point (default: the centre of mass)."""
         r = self.row(handle)
-        f = as_float_array("force", force, (self.dim,))
-        p = None if point is None else as_float_array("point", point, (self.dim,))
+        f = vector("force", force, self.dim, bound=None)
+        p = None if point is None else vector("point", point, self.dim)
         b = self.bodies
         if b.kind[r] != DYNAMIC:
             return
@@ -744,7 +812,7 @@ class Simulation:
     def apply_torque(self, handle: int, torque: Any) -> None:
         """Add a torque bivector (k,) for the next step."""
         r = self.row(handle)
-        t = as_float_array("torque", torque, (self.alg.k,))
+        t = vector("torque", torque, self.alg.k, bound=None)
         if self.bodies.kind[r] != DYNAMIC:
             return
         self.bodies.torque[r] += t
@@ -753,8 +821,8 @@ class Simulation:
     def apply_impulse(self, handle: int, impulse: Any, point: Any = None) -> None:
         """Apply an impulse (n,) now, at a world point (default: the centre of mass)."""
         r = self.row(handle)
-        p_ = as_float_array("impulse", impulse, (self.dim,))
-        pt = None if point is None else as_float_array("point", point, (self.dim,))
+        p_ = vector("impulse", impulse, self.dim, bound=None)
+        pt = None if point is None else vector("point", point, self.dim)
         b = self.bodies
         if b.kind[r] != DYNAMIC:
             return
@@ -767,8 +835,44 @@ class Simulation:
     # -- stepping ---------------------------------------------------------------------------------
 
     def step(self, dt: float | None = None) -> None:
-        """Advance the world by dt seconds (default ``settings.dt``), in ``settings.substeps``."""
+        """Advance the world by dt seconds (default ``settings.dt``), in ``settings.substeps``.
+
+        All or nothing: a step that raises, or that would leave a position, rotor or velocity
+        non-finite or beyond 1e9 (m, m/s, rad/s: ``errors.MAX_MAGNITUDE``), is rolled back
+        (bodies, contacts, caches, events, time) before the error
+        propagates; the latter raises :class:`~ndrigid.core.errors.StepError` naming the bodies,
+        the quantity and the stage that made them non-finite, and drops the forces and torques
+        applied to those bodies for the step (so that the next step does not fail the same way).
+        """
         h = self.settings.dt if dt is None else positive_scalar("dt", dt)
+        saved = self._save_step_state()
+        try:
+            # numpy's overflow warnings are not needed: the guard below catches what they warn of
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                self._run_step(h)
+        except BaseException:
+            self._restore_step_state(saved)
+            raise
+        if not self._state_is_finite():
+            # replay the step stage by stage (it is deterministic) to name the stage, then undo it
+            self._restore_step_state(saved)
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                stage, rows, what = self._find_nonfinite_stage(h)
+            self._restore_step_state(saved)
+            # what was applied for this step to these bodies cannot be integrated: dropped, so that
+            # the next step does not fail the same way
+            self.bodies.force[rows] = 0.0
+            self.bodies.torque[rows] = 0.0
+            handles = [int(x) for x in self.bodies.handle[rows[:8]]]
+            more = f" and {rows.size - 8} more" if rows.size > 8 else ""
+            raise StepError(
+                f"step: the '{stage}' stage made the {what} of bodies {handles}{more} non-finite (NaN or "
+                f"infinity) or larger than {MAX_MAGNITUDE:g}; the world is left as it was before this "
+                f"step, less the forces and torques applied to these bodies for it. Check the forces, "
+                f"impulses, velocities and sizes given to these bodies, or remove bodies that fall out "
+                f"of the world")
+
+    def _run_step(self, h: float) -> None:
         sub = int(self.settings.substeps)
         hs = h / sub
         prof: dict[str, float] = {name: 0.0 for name, _ in self.stages}
@@ -783,6 +887,55 @@ class Simulation:
         self.timings = StepTimings(stages=prof, total=time.perf_counter() - t0)
         self.time += h
         self.step_count += 1
+
+    # -- the step guard ---------------------------------------------------------------------------
+
+    _GUARDED = ("position", "rotor", "rotation", "velocity", "angular_velocity")
+
+    def _save_step_state(self) -> dict[str, Any]:
+        """What a step changes, copied (the body columns, caches) or referenced (objects a step
+        replaces instead of changing: contacts, pairs, event lists)."""
+        b = self.bodies
+        return {"columns": {name: b.column(name).copy() for name in b.names},
+                "caches": copy.deepcopy(self.caches), "pairs": self.pairs, "contacts": self.contacts,
+                "events": self.events, "pending": list(self._pending_events), "time": self.time,
+                "step_count": self.step_count, "timings": self.timings}
+
+    def _restore_step_state(self, saved: dict[str, Any]) -> None:
+        b = self.bodies
+        for name, values in saved["columns"].items():
+            b.column(name)[...] = values
+        self.caches = copy.deepcopy(saved["caches"])
+        self.pairs, self.contacts, self.events = saved["pairs"], saved["contacts"], saved["events"]
+        self._pending_events = list(saved["pending"])
+        self.time, self.step_count, self.timings = saved["time"], saved["step_count"], saved["timings"]
+
+    def _nonfinite(self) -> tuple[NDArray[np.intp], str]:
+        """Rows with a guarded quantity out of bounds (non-finite, or a position or speed beyond
+        MAX_MAGNITUDE), and the first such quantity's name."""
+        b = self.bodies
+        for name in self._GUARDED:
+            col = b.column(name)
+            ok = (np.abs(col.reshape(col.shape[0], -1)) <= MAX_MAGNITUDE).all(axis=1)
+            if not ok.all():
+                return np.nonzero(~ok)[0], name.replace("_", " ")
+        return np.zeros(0, np.intp), ""
+
+    def _state_is_finite(self) -> bool:
+        """Every position, rotor and velocity finite and within MAX_MAGNITUDE (NaN fails the test)."""
+        b = self.bodies
+        return all(bool(np.abs(b.column(name)).max(initial=0.0) <= MAX_MAGNITUDE) for name in self._GUARDED)
+
+    def _find_nonfinite_stage(self, h: float) -> tuple[str, NDArray[np.intp], str]:
+        sub = int(self.settings.substeps)
+        for _ in range(sub):
+            for name, stage in self.stages:
+                stage(self, h / sub)
+                rows, what = self._nonfinite()
+                if rows.size:
+                    return name, rows, what
+        rows, what = self._nonfinite()
+        return "step", rows, what
 
     # -- physical quantities ----------------------------------------------------------------------
 
@@ -853,7 +1006,7 @@ class Simulation:
             else:
                 raise InputError(f"about: expected 'origin', 'com' or an (n,) point, got {about!r}")
         else:
-            o = as_float_array("about", about, (self.dim,))
+            o = vector("about", about, self.dim)
         C, wb, inertia = self._spin(rows)
         spin = np.einsum("nij,nj->ni", C, inertia * wb)
         orbital = _wedge(self.alg, xc - o, m[:, None] * b.velocity[rows])
