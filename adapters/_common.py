@@ -400,6 +400,7 @@ class PhysicsBridge(Generic[E]):
         self._slot_handle: NDArray[np.int64] = np.zeros(0, dtype=np.int64)
         self._free: list[int] = []
         self._stale = True
+        self._handler_error: Exception | None = None  # the first one raised by on_contact this frame
 
     # -- lookups --
 
@@ -444,17 +445,87 @@ class PhysicsBridge(Generic[E]):
         # a rebuilt body (replaced RigidBody) starts from its components, which _unbind freezes at
         # the old body's last pose and velocity
         plan = [(e, rb, *extras(e)) for _, _, e, rb in new]
+        # Transform / Velocity objects replaced on kept entities: the usual teleport and steering
+        # idiom (the new component's values are applied before the next step)
+        moving = {e for e, _, _, _ in plan} | set(gone)
+        swaps: list[tuple[E, Any]] = []
+        for e, bnd in old.items():
+            if e in moving:
+                continue
+            t, v = extras(e)
+            swaps += [(e, c) for c, was in ((t, bnd.transform), (v, bnd.velocity))
+                      if c is not None and c is not was]
+        # everything is checked before anything changes: a frame applies whole or not at all
         for e, rb, t, v in plan:
             self._check_new(e, rb, t, v)
+        for e, c in swaps:
+            self._check_swap(e, c)
+        self._check_unshared([(e, c) for e, _, t, v in plan for c in (t, v) if c is not None] + swaps)
         if gone:
             self._stale = True  # freeze the latest state (game code may have called the sim directly)
         for e in sorted(gone, key=lambda e: old[e].rigid.serial):
             self._unbind(e)
         for e, rb, t, v in plan:
             self._bind(e, rb, t, v, attach)
-        if gone or new:
+        if swaps:
+            self.refresh()  # the replaced components keep a frozen copy of the latest state
+            for e, c in swaps:
+                self._swap(e, c)
+        if gone or new or swaps:
             self._stale = True
         return len(new), len(gone)
+
+    @staticmethod
+    def _check_unshared(comps: list[tuple[E, Any]]) -> None:
+        """One component object belongs to one entity: the same Transform or Velocity on two
+        entities would show (and move) two bodies at once."""
+        seen: dict[int, E] = {}
+        for e, c in comps:
+            other = seen.setdefault(id(c), e)
+            if other is not e and other != e:
+                raise InputError(f"{type(c).__name__} of entity {e!r}: expected a component of its own, got "
+                                 f"the same object as on entity {other!r}")
+
+    def _check_swap(self, e: E, c: Any) -> None:
+        """A replacing Transform or Velocity: unbound, values of the simulation's dimension."""
+        n, k, name = self.sim.dim, self.sim.alg.k, type(c).__name__
+        if c._store is not None:
+            raise InputError(f"{name} of entity {e!r}: expected a component of its own, got one already "
+                             f"bound to another body")
+        if isinstance(c, Transform):
+            if c._position is not None:
+                vector(f"Transform.position of entity {e!r}", c._position, n)
+            if c._rotor is not None:
+                self.sim.alg.check_rotor(c._rotor, f"Transform.rotor of entity {e!r}", single=True)
+            return
+        if c._linear is not None:
+            vector(f"Velocity.linear of entity {e!r}", c._linear, n)
+        if c._angular is not None:
+            vector(f"Velocity.angular of entity {e!r}", c._angular, k)
+        moving = any(a is not None and np.any(a) for a in (c._linear, c._angular))
+        if moving and self._bound[e].rigid.kind == "static":
+            raise InputError(f"Velocity of entity {e!r}: expected zero for a static body, got "
+                             f"{c._linear!r}, {c._angular!r}")
+
+    def _swap(self, e: E, c: Any) -> None:
+        """Bind the replacing component ``c`` to the entity's body and queue its values; the
+        replaced one keeps a frozen copy of the body's latest state."""
+        b, st = self._bound[e], self.store
+        s = b.slot
+        if isinstance(c, Transform):
+            old, b.transform = b.transform, c
+            old._position, old._rotor = st.position[s], st.rotor[s]
+            st.pending_pose.pop(s, None)
+            if c._position is not None or c._rotor is not None:
+                st.pending_pose[s] = c
+        else:
+            old, b.velocity = b.velocity, c
+            old._linear, old._angular = st.velocity[s], st.angular_velocity[s]
+            st.pending_velocity.pop(s, None)
+            if c._linear is not None or c._angular is not None:
+                st.pending_velocity[s] = c
+        old._store, old._slot = None, -1
+        c._store, c._slot = st, s
 
     def _check_new(self, e: E, rb: RigidBody, t: Transform | None, v: Velocity | None) -> None:
         n, k = self.sim.dim, self.sim.alg.k
@@ -481,6 +552,13 @@ class PhysicsBridge(Generic[E]):
             if rb.kind == "static" and any(a is not None and np.any(a) for a in (v._linear, v._angular)):
                 raise InputError(f"Velocity of entity {e!r}: expected zero for a static body, got "
                                  f"{v._linear!r}, {v._angular!r}")
+        try:  # everything add_body checks (masses, materials, ...), nothing added
+            self.sim.check_body(
+                rb.shape, position=None if t is None else t.position, rotor=None if t is None else t.rotor,
+                velocity=None if v is None else v.linear, angular_velocity=None if v is None else v.angular,
+                **rb.body_arguments())
+        except (InputError, InputTypeError) as exc:
+            raise type(exc)(f"RigidBody of entity {e!r}: {exc}") from exc
 
     def _bind(self, e: E, rb: RigidBody, t: Transform | None, v: Velocity | None,
               attach: Callable[[E, Transform | None, Velocity | None], None]) -> None:
@@ -556,8 +634,14 @@ class PhysicsBridge(Generic[E]):
         bad = bad[b.kind[bad] == STATIC]
         if len(bad):
             who = self._handle_entity.get(int(b.handle[bad[0]]))
+            # the refused assignments are dropped (they would fail every frame); nothing else of
+            # this frame's velocities is applied yet, the rest stay queued for the next frame
+            for slot, comp in list(st.pending_velocity.items()):
+                if b.kind[sim.row(int(self._slot_handle[slot]))] == STATIC:
+                    comp._linear = comp._angular = None
+                    del st.pending_velocity[slot]
             raise InputError(f"Velocity of entity {who!r}: expected zero for a static body (static bodies "
-                             f"do not move), got a non-zero velocity")
+                             f"do not move), got a non-zero velocity; the assignment is dropped")
         b.velocity[rows[lin]] = V
         b.angular_velocity[rows[ang]] = W
         wake(sim, rows)
@@ -584,8 +668,12 @@ class PhysicsBridge(Generic[E]):
         if events and self.on_contact is not None:
             ent = self._handle_entity.get
             for ev in events:  # one call per event is what an ECS event API takes
-                self.on_contact(EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor,
-                                              ev.points, ev.normal, ev.approach_speed, ev.impulse))
+                try:
+                    self.on_contact(EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor,
+                                                  ev.points, ev.normal, ev.approach_speed, ev.impulse))
+                except Exception as exc:  # the other events and the frame's paid steps still run
+                    if self._handler_error is None:
+                        self._handler_error = exc
         # the end events of removed bodies came with this step: forget their entities now
         for h in self._gone:
             self._handle_entity.pop(h, None)
@@ -616,10 +704,20 @@ class PhysicsBridge(Generic[E]):
         self._stale = False
 
     def update(self, frame_seconds: float | None) -> int:
-        """One frame after ``sync``: pending assignments, fixed steps, scatter. Returns steps taken."""
+        """One frame after ``sync``: pending assignments, fixed steps, scatter. Returns steps taken.
+
+        An exception raised by the ``on_contact`` handler does not stop the frame: every event is
+        dispatched and every paid step taken, then the first such exception propagates (the
+        world and the components are complete and consistent by then)."""
         self.apply_pending()
-        taken = self.advance(frame_seconds)
-        self.refresh()
+        self._handler_error = None
+        try:
+            taken = self.advance(frame_seconds)
+        finally:
+            self.refresh()
+        error, self._handler_error = self._handler_error, None
+        if error is not None:
+            raise error
         return taken
 
 

@@ -48,6 +48,18 @@ def _on_rigid_body_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
     _changes[key] = _changes.get(key, 0) + 1
 
 
+# a Transform or Velocity replaced by a new object teleports or steers the body: the next update
+# diffs the entities again
+@tcod.ecs.callbacks.register_component_changed(component=Transform)
+def _on_transform_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
+    _on_rigid_body_changed(entity, old, new)
+
+
+@tcod.ecs.callbacks.register_component_changed(component=Velocity)
+def _on_velocity_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
+    _on_rigid_body_changed(entity, old, new)
+
+
 class PhysicsSystem:
     """Runs one tcod-ecs registry's rigid bodies: entities holding a :class:`RigidBody` get a body.
 

@@ -124,6 +124,8 @@ class ShapeStore:
     def extra_key(self, shape: Any) -> int:
         """Key of a shape outside the registry (the store keeps a reference, so ids stay valid)."""
         k = self._extra_ids.get(id(shape))
+        if k is not None and self.extras[-1 - k] is not shape:  # a stale id (see _convex_table)
+            k = None
         if k is None:
             self.extras.append(shape)
             k = -len(self.extras)
@@ -578,7 +580,9 @@ def _convex_table(shapes: list[Any], cache: dict[str, Any]) -> tuple[IntArray, .
     tables = cache.setdefault("convex_tables", {})
     ident = tuple(id(s) for s in shapes)
     hit = tables.get(ident)
-    if hit is not None:
+    # the identities must be checked: a deep copy of the cache keeps the originals' ids, which
+    # Python gives to new objects once the originals are freed
+    if hit is not None and all(a is b for a, b in zip(hit[0], shapes, strict=True)):
         return hit[1]
     parts = [_packed_shape(s) for s in shapes]
     table = (np.concatenate([p[0] for p in parts]), _offsets([len(p[0]) for p in parts]),

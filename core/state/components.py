@@ -191,8 +191,11 @@ class BodyInfo:
 
     handle_to_row: NDArray[np.int64] = field(default_factory=lambda: np.full(16, -1, dtype=np.int64))
     row_to_handle: list[int] = field(default_factory=list)
-    shapes: list[Any] = field(default_factory=list)  # shape registry: shape_id -> shape object
-    shape_ids: dict[int, int] = field(default_factory=dict)  # id(shape) -> shape_id
+    shapes: list[Any] = field(default_factory=list)  # shape registry: shape_id -> shape (None: free)
+    shape_ids: dict[Any, int] = field(default_factory=dict)  # value key of a shape -> shape_id
+    shape_keys: list[Any] = field(default_factory=list)  # shape_id -> its value key
+    shape_refs: list[int] = field(default_factory=list)  # shape_id -> number of bodies using it
+    free_shape_ids: list[int] = field(default_factory=list)
     user_data: dict[int, Any] = field(default_factory=dict)  # handle -> anything
     next_handle: int = 0
 
@@ -208,13 +211,69 @@ class BodyInfo:
         return h
 
     def shape_id(self, shape: Any) -> int:
-        key = id(shape)
+        """The registry id of ``shape``: shapes equal by value share one entry (shapes are
+        immutable), so bodies made from new but equal shape objects every frame do not grow the
+        registry; the key is the shape's defining values, never its ``id()``, which Python reuses
+        after an object is freed (a deep-copied world kept the originals' ids and handed a new
+        shape the entry of a freed one)."""
+        key = shape_value_key(shape)
         sid = self.shape_ids.get(key)
-        if sid is None:
+        if sid is not None and (key[0] != "object" or self.shapes[sid] is shape):
+            return sid
+        if self.free_shape_ids:
+            sid = self.free_shape_ids.pop()
+            self.shapes[sid], self.shape_keys[sid], self.shape_refs[sid] = shape, key, 0
+        else:
             sid = len(self.shapes)
             self.shapes.append(shape)
-            self.shape_ids[key] = sid
+            self.shape_keys.append(key)
+            self.shape_refs.append(0)
+        self.shape_ids[key] = sid
         return sid
+
+    def retain_shape(self, sid: int) -> None:
+        """One more body uses registry entry ``sid``."""
+        self.shape_refs[sid] += 1
+
+    def release_shape(self, sid: int) -> bool:
+        """One body fewer uses ``sid``; the entry is freed with its last body (True then: the
+        caller drops what it cached about the id before the id is given to another shape)."""
+        self.shape_refs[sid] -= 1
+        if self.shape_refs[sid] > 0:
+            return False
+        self.shape_ids.pop(self.shape_keys[sid], None)
+        self.shapes[sid] = None
+        self.shape_keys[sid] = None
+        self.free_shape_ids.append(sid)
+        return True
+
+    def shape_count(self) -> int:
+        """Number of shapes in use (registry entries held by at least one body)."""
+        return len(self.shapes) - len(self.free_shape_ids)
+
+
+def shape_value_key(shape: Any) -> tuple[Any, ...]:
+    """A hashable key of a shape's defining values (two shapes with equal keys behave the same)."""
+
+    def arr(a: Any) -> tuple[Any, ...]:
+        a = np.ascontiguousarray(a)
+        return (a.dtype.str, a.shape, a.tobytes())
+
+    name = type(shape).__name__
+    if type(shape) is S.Ball:
+        return (name, shape.dim, float(shape.radius))
+    if type(shape) is S.Box:
+        return (name, arr(shape.half_extents), float(shape._tolerance))
+    if type(shape) is S.HalfSpace:
+        return (name, arr(shape.normal), float(shape.offset))
+    if type(shape) is S.ConvexPolytope:
+        return (name, arr(shape.vertices), float(shape._tolerance))
+    if type(shape) is S.SimplexMesh:
+        return (name, arr(shape.vertices), arr(shape.cells))
+    if type(shape) is S.Compound:
+        pieces = tuple(shape_value_key(p) for p in shape.shapes)
+        return (name, pieces, arr(shape.positions), arr(shape.rotors))
+    return ("object", id(shape))  # another kind: by identity, checked on lookup
 
 
 def body_frames(alg: Algebra, rotor: NDArray[np.float64],

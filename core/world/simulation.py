@@ -320,6 +320,7 @@ class Simulation:
         angular_damping: float = 0.0,
         sensor: bool = False,
         user_data: Any = None,
+        _check_only: bool = False,
     ) -> int:
         """Add a body and return its handle (a stable int, never reused).
 
@@ -355,9 +356,12 @@ class Simulation:
                                        kind, friction, restitution, layer, mask, linear_damping,
                                        angular_damping, sensor, static_friction,
                                        rolling_resistance, spin_friction)
+        if _check_only:
+            return -1
         sid = self.info.shape_id(shape)
         row_values["shape_id"] = sid
         row = self.bodies.append(row_values)
+        self.info.retain_shape(sid)
         h = self.info.new_handle(row)
         self.bodies.handle[row] = h
         if user_data is not None:
@@ -365,6 +369,12 @@ class Simulation:
         self._wake_touching(row)
         del alg, n
         return h
+
+    def check_body(self, shape: Any, **arguments: Any) -> None:
+        """Validate the arguments of :meth:`add_body` without adding anything: raises exactly as
+        ``add_body(shape, **arguments)`` would (the adapters check a whole frame's new bodies
+        this way before they add any)."""
+        self.add_body(shape, _check_only=True, **arguments)
 
     def _body_values(self, shape: Any, position: Any, rotor: Any, velocity: Any, angular_velocity: Any,
                      density: Any, mass: Any, kind: str, friction: Any, restitution: Any, layer: Any,
@@ -503,6 +513,7 @@ class Simulation:
         self._wake_touching(row)
         self._removal_events(handle)
         b, info = self.bodies, self.info
+        sid = int(b.shape_id[row])
         moved_from = b.swap_remove(row)
         if moved_from != row:
             moved_handle = info.row_to_handle[moved_from]
@@ -512,6 +523,11 @@ class Simulation:
         info.handle_to_row[handle] = -1
         info.user_data.pop(handle, None)
         self.caches.pop("pairs", None)  # cached pairs refer to rows; rebuild next step
+        if info.release_shape(sid):  # its last body: what was cached by the id goes with it
+            narrow = self.caches.get("narrowphase", {})
+            clouds = self.caches.get("shape_clouds", {})
+            for table in (clouds, narrow.get("compound", {}), narrow.get("mesh", {})):
+                table.pop(sid, None)
 
     def _removal_events(self, handle: int) -> None:
         """Queue end events for the touching pairs of a body being removed (reported by the next
