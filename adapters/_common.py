@@ -409,6 +409,62 @@ class PhysicsBridge(Generic[E]):
         """Entities that own a body, in the order their bodies were made."""
         return list(self._bound)
 
+    # -- snapshots --
+
+    def save(self) -> dict[str, Any]:
+        """The world's state (``Simulation.save_state``), which entity owns which body, and the
+        stepper's banked time: what :meth:`restore` needs to put the game back."""
+        self.apply_pending()  # assignments made this frame belong to the saved world
+        return {"world": self.sim.save_state(), "bodies": {e: b.handle for e, b in self._bound.items()},
+                "accumulator": self.stepper.accumulator}
+
+    def restore(self, saved: dict[str, Any], rigid_of: Callable[[E], RigidBody | None],
+                extras: Callable[[E], tuple[Transform | None, Velocity | None]],
+                attach: Callable[[E, Transform | None, Velocity | None], None]) -> None:
+        """Put back a :meth:`save`: the world's state, and each saved entity bound to its body
+        again (its current RigidBody, Transform and Velocity components, or new ones attached).
+        Every saved entity must hold a RigidBody now; checked before anything changes."""
+        if not isinstance(saved, dict) or set(saved) != {"world", "bodies", "accumulator"}:
+            raise InputError(f"saved: expected what PhysicsBridge.save returned, got {type(saved).__name__}")
+        plan = []
+        for e, h in saved["bodies"].items():
+            rb = rigid_of(e)
+            if rb is None:
+                raise InputError(f"saved: entity {e!r} owned body {h} when saved, but has no RigidBody now")
+            t, v = extras(e)  # bound ones are detached below and bound again to the saved body
+            plan.append((e, int(h), rb, t, v))
+        self._check_unshared([(e, c) for e, _, _, t, v in plan for c in (t, v) if c is not None])
+        self.sim.restore_state(saved["world"])  # checks the state before it changes anything
+        for b in self._bound.values():  # old bindings: components detached (the bodies went with the state)
+            for c in (b.transform, b.velocity):
+                c._store, c._slot = None, -1
+        st = self.store
+        st.pending_pose.clear()
+        st.pending_velocity.clear()
+        self._bound.clear()
+        self._handle_entity.clear()
+        self._slot_handle[:] = -1
+        self._free = list(range(len(self._slot_handle) - 1, -1, -1))
+        self._gone.clear()
+        for e, h, rb, t, v in plan:
+            new_t, new_v = t is None, v is None
+            t = Transform() if t is None else t
+            v = Velocity() if v is None else v
+            slot = self._free.pop() if self._free else self._grow_slots()
+            self._slot_handle[slot] = h
+            for c in (t, v):
+                c._store, c._slot = st, slot
+            t._position = t._rotor = None
+            v._linear = v._angular = None
+            self._bound[e] = _Binding(rb, t, v, h, slot)
+            self._handle_entity[h] = e
+            if new_t or new_v:
+                attach(e, t if new_t else None, v if new_v else None)
+        self.stepper.accumulator = float(saved["accumulator"])
+        self.stepper.forget_previous()
+        self._stale = True
+        self.refresh()
+
     def handle_of(self, entity: E) -> int:
         """Body handle of an entity (for the Simulation's own calls: forces, impulses, queries)."""
         b = self._bound.get(entity)

@@ -109,6 +109,18 @@ class PhysicsProcessor(esper.Processor):
         # attaching components cleared esper's cache; remember the list as it is after that
         self._seen = esper.get_component(RigidBody)
 
+    def save(self) -> dict[str, Any]:
+        """The physics of this esper world, in memory: the Simulation's state and which entity
+        owns which body (save your components as you save the rest of the game)."""
+        self.sync()
+        return self.bridge.save()
+
+    def restore(self, saved: dict[str, Any]) -> None:
+        """Put back a :meth:`save`: the saved entities (which must hold a RigidBody) own their
+        saved bodies again, at the saved poses; stepping on replays the saved world bit for bit."""
+        self.bridge.restore(saved, lambda e: esper.try_component(e, RigidBody), _extras, _attach)
+        self._seen = None  # diff the entities again at the next frame
+
     def handle_of(self, entity: int) -> int:
         """Body handle of an entity, for the Simulation's calls (apply_impulse, queries ...)."""
         return self.bridge.handle_of(entity)

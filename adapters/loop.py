@@ -125,6 +125,13 @@ class FixedStepper:
         if self.on_step is not None:
             self.on_step()
 
+    def forget_previous(self) -> None:
+        """Drop the poses remembered before the latest step (after the world was replaced, e.g.
+        restored from a snapshot): interpolation starts again from the current poses."""
+        self._prev_handles = np.zeros(0, dtype=np.int64)
+        self._prev_position = np.zeros((0, self.sim.dim))
+        self._prev_rotor = np.zeros((0, self.sim.alg.even_size))
+
     def previous_poses(self) -> tuple[Array, Array]:
         """Poses (positions (N, n), rotors (N, 2**(n-1))) before the latest step, in the
         simulation's current row order. Bodies added since then take their current pose."""

@@ -109,6 +109,17 @@ class PhysicsSystem:
         self.bridge.sync(((e, e.components(traverse=())[RigidBody]) for e in holders), _extras, _attach)
         self._seen_changes = version
 
+    def save(self) -> dict[str, Any]:
+        """The physics of this registry, in memory: the Simulation's state and which entity owns
+        which body."""
+        self.sync()
+        return self.bridge.save()
+
+    def restore(self, saved: dict[str, Any]) -> None:
+        """Put back a :meth:`save` (the saved entities must hold a RigidBody)."""
+        self.bridge.restore(saved, lambda e: e.components(traverse=()).get(RigidBody), _extras, _attach)
+        self._seen_changes = None
+
     def handle_of(self, entity: tcod.ecs.Entity) -> int:
         """Body handle of an entity, for the Simulation's calls."""
         return self.bridge.handle_of(entity)

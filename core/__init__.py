@@ -26,6 +26,7 @@ from .geometry.noff import read_noff, write_noff
 from .geometry.polytopes import cell_24, cell_120, cell_600, hypercube, orthoplex, regular_simplex
 from .geometry.shapes import Ball, Box, Compound, ConvexPolytope, HalfSpace, Shape, SimplexMesh
 from .world.simulation import DYNAMIC, KINEMATIC, STATIC, Settings, Simulation, StepTimings
+from .world.snapshot import load_world, save_world
 
 SAMPLE_MESH = _Path(__file__).resolve().parent / "data" / "rock4.noff"
 """A 4-D sample mesh (nOFF): the boundary of a faceted rock, 40 vertices, 195 tetrahedra."""
@@ -62,12 +63,14 @@ __all__ = [
     "distance",
     "hypercube",
     "inertia_from_covariance",
+    "load_world",
     "orthoplex",
     "overlap",
     "raycast_shape",
     "read_noff",
     "regular_simplex",
     "rotate_inertia",
+    "save_world",
     "second_compound",
     "shift_inertia",
     "skew",

@@ -370,6 +370,24 @@ class Simulation:
         del alg, n
         return h
 
+    # -- snapshots --------------------------------------------------------------------------------
+
+    def save_state(self) -> dict[str, Any]:
+        """A deep copy of everything a step reads (bodies, shapes, settings, contacts and their
+        warm-start impulses, islands, events, time, step counter): restore it with
+        :meth:`restore_state` to rewind (see :mod:`ndrigid.core.world.snapshot`; ``save_world`` /
+        ``load_world`` write and read it as a file)."""
+        from .snapshot import save_state
+
+        return save_state(self)
+
+    def restore_state(self, state: dict[str, Any]) -> None:
+        """Rewind to a state from :meth:`save_state`; stepping on gives bit for bit what the
+        world gave after it was saved. The state can be restored again."""
+        from .snapshot import restore_state
+
+        restore_state(self, state)
+
     def check_body(self, shape: Any, **arguments: Any) -> None:
         """Validate the arguments of :meth:`add_body` without adding anything: raises exactly as
         ``add_body(shape, **arguments)`` would (the adapters check a whole frame's new bodies
