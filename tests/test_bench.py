@@ -69,3 +69,21 @@ def test_defaults_bench_prints_one_line_per_variant(capsys) -> None:  # type: ig
     lines = [ln for ln in capsys.readouterr().out.splitlines() if "2-D" in ln]
     assert len(lines) == len(GROUPS["deep"][1]) + len(GROUPS["spin"][1])
     assert lines[0].startswith("defaults") and "out of the floor after" in lines[0]
+
+
+def test_soak_reports_memory_and_a_pile_that_comes_to_rest(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    """``python -m ndrigid.bench.soak`` on a small 4-D pile: one line per interval plus the
+    summary; the pile falls asleep within 5 s of simulated time (no kinetic energy left: sleeping
+    bodies do not move) and the JSON file holds the lines."""
+    import json
+
+    from ndrigid.bench.soak import main
+
+    out = tmp_path / "soak.json"
+    assert main(["--bodies", "30", "--steps", "300", "--every", "100", "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "MB after the first step" in text and "MB at the end" in text
+    rows = json.loads(out.read_text())
+    assert [r["step"] for r in rows] == [1, 100, 200, 300]
+    assert rows[-1]["awake"] == 0 and rows[-1]["kinetic_energy_j"] == 0.0
+    assert all(r["rss_mb"] > 0 for r in rows)
