@@ -18,7 +18,7 @@ the simulation exactly as it was.
 
 from __future__ import annotations
 
-import copy
+import contextlib
 import math
 import time
 from collections.abc import Callable
@@ -78,7 +78,28 @@ def _one_blas_thread() -> Any:
         from threadpoolctl import ThreadpoolController
 
         _BLAS.append(ThreadpoolController())
-    return _BLAS[0].limit(limits=1, user_api="blas")
+    ctl = _BLAS[0]
+    if all(lib.num_threads == 1 for lib in ctl.lib_controllers if lib.user_api == "blas"):
+        return contextlib.nullcontext()  # already one thread (asking costs ~1 us per library)
+    return ctl.limit(limits=1, user_api="blas")
+
+
+def _copy_tree(obj: Any) -> Any:
+    """A copy of the caches for the step guard: dicts, lists, sets and arrays are copied all the
+    way down (a step changes them in place), plain tuples rebuilt, everything else is shared
+    (events, shapes, contact sets, numbers: never changed in place). Measured on the caches of the
+    settled 4-D pile of 307: 26 us, against 46 us for copy.deepcopy."""
+    if isinstance(obj, dict):
+        return {k: _copy_tree(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_copy_tree(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return obj.copy()
+    if isinstance(obj, set):
+        return set(obj)
+    if type(obj) is tuple:
+        return tuple(_copy_tree(v) for v in obj)
+    return obj
 
 
 #: the material columns of a body (Simulation.material / set_material)
@@ -944,13 +965,15 @@ class Simulation:
     # -- the step guard ---------------------------------------------------------------------------
 
     _GUARDED = ("position", "rotor", "rotation", "velocity", "angular_velocity")
+    #: the body columns a step writes (the stages and kernels write no other)
+    _STEP_COLUMNS = _GUARDED + ("force", "torque", "awake", "rest_time")
 
     def _save_step_state(self) -> dict[str, Any]:
-        """What a step changes, copied (the body columns, caches) or referenced (objects a step
-        replaces instead of changing: contacts, pairs, event lists)."""
+        """What a step changes, copied (the body columns it writes, the caches) or referenced
+        (objects a step replaces instead of changing: contacts, pairs, event lists)."""
         b = self.bodies
-        return {"columns": {name: b.column(name).copy() for name in b.names},
-                "caches": copy.deepcopy(self.caches), "pairs": self.pairs, "contacts": self.contacts,
+        return {"columns": {name: b.column(name).copy() for name in self._STEP_COLUMNS},
+                "caches": _copy_tree(self.caches), "pairs": self.pairs, "contacts": self.contacts,
                 "events": self.events, "pending": list(self._pending_events), "time": self.time,
                 "step_count": self.step_count, "timings": self.timings}
 
@@ -958,7 +981,7 @@ class Simulation:
         b = self.bodies
         for name, values in saved["columns"].items():
             b.column(name)[...] = values
-        self.caches = copy.deepcopy(saved["caches"])
+        self.caches = _copy_tree(saved["caches"])
         self.pairs, self.contacts, self.events = saved["pairs"], saved["contacts"], saved["events"]
         self._pending_events = list(saved["pending"])
         self.time, self.step_count, self.timings = saved["time"], saved["step_count"], saved["timings"]
