@@ -31,16 +31,31 @@ from typing import Any
 
 import numpy as np
 
-HELP_LINES = [
-    "mouse left    pick a body, drag it on a spring, release to throw",
-    "mouse right   turn the 3-D view (arrow keys too)",
-    "Q / E         move the slice along the last hidden axis",
-    "Z / C         move the slice along the other hidden axis (5-D)",
-    "space         pause / resume        .  single step while paused",
-    "R             reset the scene       tab / 1-3  switch scenes",
-    "P             perspective / orthographic        H  this help",
-    "esc           quit",
+#: the help overlay: (keys, what they do), drawn in two aligned columns
+HELP = [
+    ("mouse left", "pick a body, drag it on a spring, release to throw"),
+    ("mouse right", "turn the 3-D view (arrow keys too)"),
+    ("Q / E", "move the slice along the last hidden axis"),
+    ("Z / C", "move the slice along the other hidden axis (5-D)"),
+    ("space", "pause / resume"),
+    (".", "single step while paused"),
+    ("R", "reset the scene"),
+    ("tab / 1-3", "switch scenes (the slice and camera recentre)"),
+    ("P", "perspective / orthographic"),
+    ("H", "this help"),
+    ("esc", "quit"),
 ]
+HELP_LINES = [f"{k:<12}{v}" for k, v in HELP]
+
+#: physics step, seconds, and the most steps one drawn frame takes (beyond that the world runs
+#: in slow motion rather than making every frame slower still)
+STEP = 1.0 / 60.0
+MAX_STEPS_PER_FRAME = 2
+#: weight of the newest sample in the exponential moving averages of the status line
+SMOOTHING = 0.1
+#: keys that move the slice or turn the camera while held
+MOTION_KEYS = ("K_q", "K_e", "K_z", "K_c", "K_LEFT", "K_RIGHT", "K_UP", "K_DOWN")
+YAW, PITCH = 0.35, 0.42  # the 3-D views' default camera turn, radians
 
 
 @dataclass
@@ -64,12 +79,17 @@ class App:
         self.scene_names = scenes.scene_names()
         self.scene_name = scene
         self.offsets = np.zeros(max(0, dim - 3) if dim >= 4 else (1 if dim == 3 else 0))
-        self.yaw, self.pitch, self.perspective = 0.35, 0.42, True
+        self.yaw, self.pitch, self.perspective = YAW, PITCH, True
         self.inset_view = orbit_view(0.7, 0.45)
         self.paused, self.show_help, self.step_once = False, False, False
         self.grab: Grab | None = None
         self.mouse = (0, 0)
         self.step_times: list[float] = []
+        self.step_ema: float | None = None  # smoothed step time, seconds
+        self.slow_ema = 1.0  # smoothed wall seconds per simulated second
+        self.steps_last_frame = 0
+        self.tapped: set[int] = set()  # motion keys pressed since the last frame
+        self.inset_ring: np.ndarray | None = None  # the slice outline in the inset, inset pixels
         self.clock_fps = 0.0
         self.font = pygame.font.Font(None, max(14, size[1] // 30))
         self.small = pygame.font.Font(None, max(12, size[1] // 40))
@@ -87,13 +107,28 @@ class App:
             self.world.close()
         self.world = DemoWorld(self.dim)
         self.info = scenes.build_scene(self.scene_name, self.world, self.count)
+        self.world.physics.bridge.stepper.max_steps_per_frame = MAX_STEPS_PER_FRAME
         self.t = 0.0
+        self.step_ema = None
+        self.slow_ema = 1.0
         self.grab = None
         self._view = None
 
     def switch(self, name: str) -> None:
+        """Show another scene, with the slice back at the hidden axes' 0 and the camera at its
+        default turn."""
         self.scene_name = name
+        self.offsets[:] = 0.0
+        self.yaw, self.pitch = YAW, PITCH
         self.reset()
+
+    def clamp_offsets(self) -> None:
+        """Keep the slice inside the scene's room (beyond it the slice would cut only wall)."""
+        if not len(self.offsets):
+            return
+        lo, hi = self.info.bounds
+        first = self.dim - len(self.offsets)
+        self.offsets[:] = np.clip(self.offsets, lo[first:], hi[first:])
 
     @property
     def sim(self) -> Any:
@@ -106,16 +141,47 @@ class App:
 
     # -- stepping ---------------------------------------------------------------------------------
 
-    def advance(self, seconds: float) -> None:
+    def advance(self, seconds: float) -> int:
+        """Physics for a frame of ``seconds`` wall time: at most MAX_STEPS_PER_FRAME fixed steps
+        (exactly one headless, or for a single step while paused). Returns the steps taken."""
         if self.paused and not self.step_once:
-            return
+            self.steps_last_frame = 0
+            return 0
+        single = self.step_once or self.headless
         self.step_once = False
         if self.info.tick is not None:
             self.info.tick(self.world, self.t)
         self._spring()
-        self.world.step(1.0 / 60.0 if self.headless else seconds)
-        self.t += 1.0 / 60.0
-        self.step_times.append(float(self.sim.timings.total))
+        if single:
+            self.world.step(None)
+            steps = 1
+        else:
+            self.world.step(seconds)
+            steps = int(self.world.physics.steps_last_frame)
+        self.steps_last_frame = steps
+        self.t += steps * STEP
+        if steps:
+            ms = float(self.sim.timings.total)
+            self.step_times.append(ms)
+            self.step_ema = ms if self.step_ema is None else self.step_ema + SMOOTHING * (ms - self.step_ema)
+        if not single and seconds > 0:
+            ratio = seconds / max(steps * STEP, 0.5 * STEP)
+            self.slow_ema += SMOOTHING * (ratio - self.slow_ema)
+        return steps
+
+    def slow_motion(self) -> float | None:
+        """How many times slower than real time the world runs (None: it keeps up)."""
+        return self.slow_ema if self.slow_ema > 1.15 and not self.paused else None
+
+    def frame(self, seconds: float, events: list[Any] | None = None) -> bool:
+        """One frame of the window loop: the events (default: pygame's queue), held and tapped
+        keys, then the physics. False means quit."""
+        running = True
+        for ev in self.pg.event.get() if events is None else events:
+            running = self.handle_event(ev) and running
+        self.held_keys(seconds)
+        self.advance(seconds)
+        return running
 
     def _spring(self) -> None:
         """A damped spring from the grabbed point to the mouse, plus the body's weight (so it holds)."""
@@ -198,8 +264,8 @@ class App:
     # -- input ------------------------------------------------------------------------------------
 
     def pick(self) -> None:
-        from ndrigid.core import DYNAMIC
-        from ndrigid.core.world.queries import bodies_containing_point, raycast
+        from ndrigid.core import DYNAMIC, HalfSpace
+        from ndrigid.core.world.queries import bodies_containing_point, raycast_all
 
         sim, flat = self.sim, self.flat()
         handle, point, depth = None, None, 0.0
@@ -211,7 +277,11 @@ class App:
                 handle, point = hits[0], x
         else:
             o, d = self.mouse_ray()
-            hit = raycast(sim, flat.to_world(o), d @ flat.frame)
+            # the room's walls (half-spaces) are drawn as low kerbs and the eye is outside them:
+            # the ray passes through them, as the view does, and stops at the first other body
+            hits = [h for h in raycast_all(sim, flat.to_world(o), d @ flat.frame)
+                    if not isinstance(sim.shape(h.handle), HalfSpace)]
+            hit = hits[0] if hits else None
             if hit is not None and sim.bodies.kind[sim.row(hit.handle)] == DYNAMIC:
                 handle, point = hit.handle, hit.point
                 cam = self.camera()
@@ -237,6 +307,8 @@ class App:
             self.grab = None  # the body keeps the spring's velocity: a throw
         elif ev.type == pg.KEYDOWN:
             k = ev.key
+            if k in self._motion_keys():
+                self.tapped.add(k)  # a tap shorter than a frame still moves (see held_keys)
             if k == pg.K_ESCAPE:
                 return False
             if k == pg.K_SPACE:
@@ -256,16 +328,28 @@ class App:
                 self.perspective = not self.perspective
         return True
 
+    def _motion_keys(self) -> set[int]:
+        return {getattr(self.pg, name) for name in MOTION_KEYS}
+
     def held_keys(self, seconds: float) -> None:
+        """Move the slice and turn the camera by the keys held now or tapped since the last frame
+        (a tap moves at least one step's worth, so no key press is lost between frames)."""
         pg = self.pg
-        keys = pg.key.get_pressed()
+        pressed = pg.key.get_pressed()
+        tapped, self.tapped = self.tapped, set()
+        seconds = max(seconds, STEP) if tapped else seconds
+
+        def down(k: int) -> int:
+            return int(bool(pressed[k]) or k in tapped)
+
         rate = 0.8 * seconds
         if len(self.offsets):
-            self.offsets[-1] += rate * (keys[pg.K_e] - keys[pg.K_q])
+            self.offsets[-1] += rate * (down(pg.K_e) - down(pg.K_q))
             if len(self.offsets) > 1:
-                self.offsets[0] += rate * (keys[pg.K_c] - keys[pg.K_z])
-        self.yaw += 1.5 * seconds * (keys[pg.K_RIGHT] - keys[pg.K_LEFT])
-        self.pitch = float(np.clip(self.pitch + 1.5 * seconds * (keys[pg.K_DOWN] - keys[pg.K_UP]), -1.4, 1.4))
+                self.offsets[0] += rate * (down(pg.K_c) - down(pg.K_z))
+            self.clamp_offsets()
+        self.yaw += 1.5 * seconds * (down(pg.K_RIGHT) - down(pg.K_LEFT))
+        self.pitch = float(np.clip(self.pitch + 1.5 * seconds * (down(pg.K_DOWN) - down(pg.K_UP)), -1.4, 1.4))
 
     # -- drawing ----------------------------------------------------------------------------------
 
@@ -306,13 +390,22 @@ class App:
         step (the adapter's FixedStepper), so motion stays smooth whatever the frame rate."""
         return self.world.physics.bridge.stepper.interpolated()
 
+    def wall_box(self, axes: list[int], height: float | None = None, thick: float = 0.4,
+                 below: float = 1.5) -> tuple[np.ndarray, np.ndarray]:
+        """The box that clips the room's walls (half-spaces) when drawn, on the world ``axes``:
+        ``thick`` metres outside the room on every side, ``below`` under its floor, and up to
+        ``height`` (None: the ceiling's outside)."""
+        lo, hi = self.info.bounds
+        a, b = lo[axes] - thick, hi[axes] + thick
+        a[1] = lo[1] - below
+        if height is not None:
+            b[1] = height
+        return a, b
+
     def draw_flat(self, surf: Any) -> None:
-        """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces."""
-        span = self.info.span
-        c = self.info.centre
-        lo = np.array([c[0] - span, c[1] - span])
-        hi = np.array([c[0] + span, c[1] + span])
-        self.view().draw(surf, poses=self.poses(), region=(lo, hi))
+        """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces (the
+        room's walls drawn 0.4 m thick)."""
+        self.view().draw(surf, poses=self.poses(), region=self.wall_box([0, 1]))
         if self.grab is not None:
             self._draw_spring(surf)
 
@@ -331,9 +424,8 @@ class App:
 
     def draw_solid(self, surf: Any) -> None:
         """4-D and 5-D: the 3-D slice, shaded, back faces removed, painter's order."""
-        span = self.info.span
-        c = self.info.centre
-        box = (np.array([c[0] - span * 0.6, -1.0, -2.5]), np.array([c[0] + span * 0.6, 0.5 * span, 2.5]))
+        # the room's walls as low kerbs (0.35 m), so they mark the room without hiding it
+        box = self.wall_box([0, 1, 2], height=0.35, thick=0.3, below=1.0)
         self.view().draw(surf, poses=self.poses(), region=box, camera=self.camera())
         if self.grab is not None:
             self._draw_spring(surf)
@@ -355,15 +447,20 @@ class App:
         view = self.view()
         whole = replace(view, flat=axis_flat(3, []), highlight=set(view.highlight))
         whole._regions = view._regions
-        box = (np.array([c[0] - span * 0.6, -0.5, -2.5]), np.array([c[0] + span * 0.6, 0.0, 2.5]))
+        box = self.wall_box([0, 1, 2], height=0.35, thick=0.3, below=0.5)
         whole.draw(inset, poses=self.poses(), region=box, camera=cam, thin=True)
+        # the slice plane x_2 = w across the room, clipped to the inset
         w = float(self.offsets[0])
-        corners = np.array([[c[0] - span / 2, -0.2, w], [c[0] + span / 2, -0.2, w],
-                            [c[0] + span / 2, span * 0.5, w], [c[0] - span / 2, span * 0.5, w]])
+        lo, hi = self.info.bounds
+        top = min(float(hi[1]), c[1] + span * 0.3)
+        corners = np.array([[lo[0], lo[1], w], [hi[0], lo[1], w], [hi[0], top, w], [lo[0], top, w]])
         xy, _ = project_points(corners, cam)
         s = W / span
         ring = np.stack([W / 2 + xy[:, 0] * s, H / 2 - xy[:, 1] * s], axis=1)
-        pg.draw.polygon(inset, P.SIGNAL_AMBER, ring.tolist(), 1)
+        ring = clip_polygon(ring, (0, 0), (W - 1, H - 1))
+        self.inset_ring = ring
+        if len(ring) >= 3:
+            pg.draw.polygon(inset, P.SIGNAL_AMBER, ring.tolist(), 1)
         pg.draw.rect(inset, P.FADED_CHALK, inset.get_rect(), 1)
         surf.blit(inset, (x0, y0))
         surf.blit(self.small.render("whole 3-D world", True, P.FADED_CHALK), (x0 + 6, y0 + H - 16))
@@ -378,26 +475,73 @@ class App:
         first = self.dim - len(self.offsets)
         sl = "  ".join(f"{names % (first + i)}={v:+.2f}" for i, v in enumerate(self.offsets))
         fps = "headless" if self.headless else f"{self.clock_fps:5.1f} fps"
-        text = (f"{fps}   step {1e3 * sim.timings.total:5.2f} ms   bodies {sim.count}   "
-                f"contacts {contacts}   {self.dim}-D   slice {sl or 'none (whole world)'}"
+        step = 1e3 * (self.step_ema if self.step_ema is not None else sim.timings.total)
+        story = ""
+        if self.info.progress is not None:
+            done, total = self.info.progress(self.world)
+            story = f"   {self.info.progress_label} {done}/{total}"
+        text = (f"{fps}   step {step:5.2f} ms   bodies {sim.count}   "
+                f"contacts {contacts}   {self.dim}-D   slice {sl or 'none (whole world)'}{story}"
                 f"{'   PAUSED' if self.paused else ''}")
         bar = self.pg.Surface((self.size[0], self.font.get_height() + 8))
         bar.fill(P.DEEP_SLATE)
         bar.blit(self.font.render(text, True, P.CHALK), (8, 4))
         surf.blit(bar, (0, self.size[1] - bar.get_height()))
         title = scenes.scene_title(self.scene_name)
-        surf.blit(self.small.render(f"{title}   (H: help)", True, P.FADED_CHALK), (8, 8))
+        head = self.pg.Surface((self.size[0], self.title_height()))
+        head.fill(P.DEEP_SLATE)
+        head.blit(self.small.render(f"{title}   (H: help)", True, P.FADED_CHALK), (8, 4))
+        slow = self.slow_motion()
+        if slow is not None:
+            mark = self.small.render(f"slow motion x {slow:.1f}", True, P.SIGNAL_AMBER)
+            head.blit(mark, (self.size[0] - mark.get_width() - 8, 4))
+        surf.blit(head, (0, 0))
+
+    def title_height(self) -> int:
+        """Pixels of the title bar at the top of the window."""
+        return self.small.get_height() + 8
+
+    def help_layout(self) -> list[tuple[tuple[int, int], tuple[int, int]]]:
+        """Panel pixels of each help row's key cell and text cell: the text column starts at one
+        x for every row, past the widest key."""
+        lh = self.font.get_height() + 2
+        col = 12 + max(self.font.size(k)[0] for k, _ in HELP) + 24
+        return [((12, 6 + lh * (i + 1)), (col, 6 + lh * (i + 1))) for i in range(len(HELP))]
 
     def draw_help(self, surf: Any) -> None:
         from . import palette as P
 
         lh = self.font.get_height() + 2
-        panel = self.pg.Surface((int(self.size[0] * 0.8), lh * (len(HELP_LINES) + 2)))
+        layout = self.help_layout()
+        width = max(cell[0] + self.font.size(text)[0]
+                    for (_, cell), (_, text) in zip(layout, HELP, strict=True))
+        panel = self.pg.Surface((min(width + 12, self.size[0] - 16), lh * (len(HELP) + 2)))
         panel.fill(P.DEEP_SLATE)
         panel.blit(self.font.render("keys", True, P.SIGNAL_AMBER), (12, 6))
-        for i, line in enumerate(HELP_LINES):
-            panel.blit(self.font.render(line, True, P.CHALK), (12, 6 + lh * (i + 1)))
-        surf.blit(panel, (int(self.size[0] * 0.1), int(self.size[1] * 0.15)))
+        for (key_at, text_at), (key, text) in zip(layout, HELP, strict=True):
+            panel.blit(self.font.render(key, True, P.SIGNAL_AMBER), key_at)
+            panel.blit(self.font.render(text, True, P.CHALK), text_at)
+        surf.blit(panel, ((self.size[0] - panel.get_width()) // 2, int(self.size[1] * 0.12)))
+
+
+def clip_polygon(ring: np.ndarray, lo: tuple[float, float], hi: tuple[float, float]) -> np.ndarray:
+    """The part of the polygon ``ring`` (P, 2) inside the rectangle lo..hi (Sutherland and
+    Hodgman, "Reentrant polygon clipping", CACM 17(1), 1974): one pass per edge of the rectangle."""
+    pts = [np.asarray(p, dtype=float) for p in ring]
+    for axis in (0, 1):
+        for bound, sign in ((lo[axis], 1.0), (hi[axis], -1.0)):
+            out: list[np.ndarray] = []
+            for i, cur in enumerate(pts):
+                prev = pts[i - 1]
+                fc, fp = sign * (cur[axis] - bound), sign * (prev[axis] - bound)
+                if (fc >= 0) != (fp >= 0):
+                    out.append(prev + (cur - prev) * (fp / (fp - fc)))
+                if fc >= 0:
+                    out.append(cur)
+            pts = out
+            if not pts:
+                return np.zeros((0, 2))
+    return np.array(pts)
 
 
 def _parse(argv: list[str] | None) -> argparse.Namespace:
@@ -548,10 +692,7 @@ def main(argv: list[str] | None = None) -> int:
     while running:
         now = time.perf_counter()
         dt, last = min(now - last, 0.1), now
-        for ev in pygame.event.get():
-            running = app.handle_event(ev) and running
-        app.held_keys(dt)
-        app.advance(dt)
+        running = app.frame(dt)
         app.draw(screen)
         pygame.display.flip()
         clock.tick(60)

@@ -16,15 +16,17 @@ QUARRY_OCHRE: Colour = (214, 160, 84)     # cut blocks
 RIVER_STONE: Colour = (146, 168, 178)     # boulders (balls)
 FLINT_ROSE: Colour = (196, 110, 122)      # faceted stones (polytopes)
 MOSS_LAMP: Colour = (132, 196, 120)       # billiard balls, highlight set
-FELT_TEAL: Colour = (38, 92, 88)          # billiard table
-CRATE_PINE: Colour = (186, 132, 78)       # crates
-ROLLER_STEEL: Colour = (150, 156, 170)    # conveyor rollers (kinematic)
+FELT_TEAL: Colour = (26, 122, 98)         # billiard table
+CRATE_PINE: Colour = (150, 100, 56)      # crates
+BELT_STEEL: Colour = (120, 132, 160)      # conveyor belt (static)
+PUSHER_BLUE: Colour = (70, 140, 230)      # the conveyor's pusher (kinematic)
+CUE_IVORY: Colour = (240, 234, 214)       # the cue ball
 SIGNAL_AMBER: Colour = (255, 196, 64)     # picked body, drag spring
 CHALK: Colour = (226, 230, 236)           # text
 FADED_CHALK: Colour = (140, 148, 160)     # secondary text, grid, slice-plane marker
 OUTLINE_INK: Colour = (12, 14, 18)        # polygon outlines
 
-#: colours handed to dynamic bodies of a scene in turn (by body role)
+#: the colour of every body role (a scene gives each body a role; different roles, different colours)
 ROLE_COLOURS: dict[str, Colour] = {
     "ground": BEDROCK,
     "block": QUARRY_OCHRE,
@@ -33,7 +35,9 @@ ROLE_COLOURS: dict[str, Colour] = {
     "ball": MOSS_LAMP,
     "table": FELT_TEAL,
     "crate": CRATE_PINE,
-    "roller": ROLLER_STEEL,
+    "belt": BELT_STEEL,
+    "pusher": PUSHER_BLUE,
+    "cue": CUE_IVORY,
 }
 
 

@@ -1,16 +1,23 @@
 """The demo's scenes, registered by name. Each builds its bodies for any dimension n >= 2.
 
 Layout in every dimension: e_0 runs left to right, e_1 is up, and e_2 .. e_{n-1} are depth axes.
-Static ground and walls span the depth axes; low walls a little way out along each depth axis keep
-bodies near the default slice (the hidden axes at 0), so the slice always has something in it.
+A depth axis is *shown* when the default view draws it (e_2 in 4-D and 5-D, whose views are the
+3-D slice x_3 = 0 [, x_4 = 0]) and *hidden* otherwise (e_2 in 3-D, e_3 and e_4 in 4-D and 5-D).
+
+Every scene is a closed room (:func:`room`: static half-spaces on every side and a ceiling, the
+box :attr:`SceneInfo.bounds`), so no body can leave it. Along the hidden axes the room is a
+narrow slab around the default slice (the hidden coordinates at 0), about one body thick, so the
+bodies the story is about stay in the slice the window shows.
 
 * ``rockfall``  -- boulders (balls), cut blocks (boxes) and faceted stones (polytopes) tumble down a
-  tilted slab into a walled catch basin.
-* ``billiards`` -- a felt table with a racked cluster of balls and a cue ball sent into it.
-* ``conveyor``  -- a kinematic pusher sweeps crates along a belt; they tip off its end down a chute.
+  tilted slab into a catch basin at its foot.
+* ``billiards`` -- a cue ball breaks a racked cluster on a felt table walled by cushions.
+* ``conveyor``  -- a kinematic pusher sweeps crates along a belt; they drop off its end, slide down a
+  chute and collect in a bin.
 
 A scene factory takes ``(world, dim, count, rng)`` (``count`` dynamic bodies) and returns a
-:class:`SceneInfo` saying where the view should look and what to do every frame.
+:class:`SceneInfo` saying where the view should look, the room's bounds, what to do every frame
+and how far the scene's story has got (:attr:`SceneInfo.progress`).
 """
 
 from __future__ import annotations
@@ -24,6 +31,9 @@ from ndrigid.core import Ball, Box, ConvexPolytope, HalfSpace, cell_24, orthople
 
 from .world import DemoWorld
 
+#: physics step of the demo, seconds (the Simulation's default fixed step)
+FRAME = 1.0 / 60.0
+
 
 @dataclass
 class SceneInfo:
@@ -32,12 +42,19 @@ class SceneInfo:
     Attributes:
         centre: (2,) world (x_0, x_1) point at the centre of the view.
         span: metres of x_0 visible across the main view.
+        bounds: (lo, hi), each (n,): the room's inside; every body's centre stays in it.
         tick: called every frame with (world, seconds since start), or None.
+        progress: called with the world, returns (done, total) of the scene's story (rocks in the
+            basin, balls moved by the break, crates in the bin), or None.
+        progress_label: what ``progress`` counts, for the status line.
     """
 
     centre: tuple[float, float]
     span: float
+    bounds: tuple[np.ndarray, np.ndarray]
     tick: Callable[[DemoWorld, float], None] | None = None
+    progress: Callable[[DemoWorld], tuple[int, int]] | None = None
+    progress_label: str = ""
     state: dict[str, Any] = field(default_factory=dict)
 
 
@@ -62,6 +79,18 @@ def build_scene(name: str, world: DemoWorld, count: int, seed: int = 7) -> Scene
     return info
 
 
+def run_physics(name: str, dim: int, count: int, frames: int, seed: int = 7) -> tuple[DemoWorld, SceneInfo]:
+    """Build a scene and run ``frames`` frames of its physics (the scene's tick, then one fixed
+    step) without drawing anything, as the window does with nobody touching it."""
+    world = DemoWorld(dim)
+    info = build_scene(name, world, count, seed)
+    for f in range(frames):
+        if info.tick is not None:
+            info.tick(world, f * FRAME)
+        world.step(None)
+    return world, info
+
+
 # -- helpers ----------------------------------------------------------------------------------------
 
 
@@ -74,8 +103,19 @@ def vec(dim: int, x: float = 0.0, y: float = 0.0, depth: Any = 0.0) -> np.ndarra
     return v
 
 
-def slab(dim: int, hx: float, hy: float, depth: float) -> Box:
-    """A box with half-extents hx, hy and ``depth`` along every depth axis."""
+def hidden_axes(dim: int) -> list[int]:
+    """The depth axes the default view does not draw: e_2 in 3-D, e_3 .. in 4-D and up."""
+    return [2] if dim == 3 else list(range(3, dim))
+
+
+def depths(dim: int, shown: float, hidden: float) -> np.ndarray:
+    """(n-2,) half-widths of the depth axes: ``shown`` on a drawn one, ``hidden`` on the others."""
+    hid = hidden_axes(dim)
+    return np.array([hidden if a in hid else shown for a in range(2, dim)])
+
+
+def slab(dim: int, hx: float, hy: float, depth: Any) -> Box:
+    """A box with half-extents hx, hy and ``depth`` along the depth axes (scalar or (n-2,))."""
     return Box(vec(dim, hx, hy, depth))
 
 
@@ -86,24 +126,36 @@ def tilt(world: DemoWorld, angle: float) -> np.ndarray:
     return world.alg.rotor(B)
 
 
-def ground_and_fences(world: DemoWorld, dim: int, reach: float, fence: float = 1.6) -> None:
-    """Floor half-space x_1 <= 0, and low fences at +-fence on every depth axis."""
-    up = np.zeros(dim)
-    up[1] = 1.0
-    world.add(HalfSpace(up, 0.0), np.zeros(dim), role="ground", kind="static")
-    for axis in range(2, dim):
-        # a fence across an axis the 3-D views show (e_2 in 4-D and 5-D) stays low, not to hide the scene
-        shown = dim >= 4 and axis == 2
-        h = vec(dim, reach, 0.15 if shown else 1.2, fence + 0.3)
-        h[axis] = 0.15
-        for side in (-1.0, 1.0):
-            p = vec(dim, 0.0, 0.15 if shown else 1.2, 0.0)
-            p[axis] = side * (fence + 0.15)
-            world.add(Box(h), p, role="ground", kind="static")
+def room(world: DemoWorld, lo: np.ndarray, hi: np.ndarray, *, floor_role: str = "ground",
+         wall_role: str = "ground", floor: dict[str, float] | None = None,
+         walls: dict[str, float] | None = None, sides: dict[str, float] | None = None
+         ) -> tuple[np.ndarray, np.ndarray]:
+    """Static half-spaces around the box lo..hi: the floor at lo[1], a ceiling at hi[1] and a
+    wall on each side of every other axis. Returns (lo, hi).
+
+    ``floor``, ``walls`` (the ceiling and the e_0 walls) and ``sides`` (the walls across the depth
+    axes) are materials; ``sides`` defaults to frictionless, so that bodies in a narrow slab do not
+    wedge between its two sides.
+    """
+    n = world.dim
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    origin = np.zeros(n)
+    world.add(HalfSpace.below(n, 1, float(lo[1])), origin, role=floor_role, kind="static", **(floor or {}))
+    world.add(HalfSpace.above(n, 1, float(hi[1])), origin, role=wall_role, kind="static", **(walls or {}))
+    for axis in range(n):
+        if axis != 1:
+            mat = (walls or {}) if axis == 0 else {"friction": 0.0, **(sides or {})}
+            for face in (HalfSpace.below(n, axis, float(lo[axis])),
+                         HalfSpace.above(n, axis, float(hi[axis]))):
+                world.add(face, origin, role=wall_role, kind="static", **mat)
+    return lo, hi
 
 
-def depth_jitter(dim: int, rng: np.random.Generator, amount: float) -> np.ndarray:
-    return rng.uniform(-amount, amount, size=max(dim - 2, 0))
+def depth_jitter(dim: int, rng: np.random.Generator, amount: float, shown: float | None = None) -> np.ndarray:
+    """(n-2,) random depth offsets: +-``amount`` on hidden axes, +-``shown`` (default: the same) on
+    shown ones."""
+    lim = depths(dim, amount if shown is None else shown, amount)
+    return rng.uniform(-lim, lim) if dim > 2 else np.zeros(0)
 
 
 def faceted_stone(dim: int, rng: np.random.Generator, size: float) -> ConvexPolytope:
@@ -121,98 +173,179 @@ def faceted_stone(dim: int, rng: np.random.Generator, size: float) -> ConvexPoly
     return ConvexPolytope(X)
 
 
+def _positions(world: DemoWorld, handles: list[int]) -> np.ndarray:
+    sim = world.sim
+    return np.array([sim.position(h) for h in handles]).reshape(len(handles), world.dim)
+
+
 # -- scenes -----------------------------------------------------------------------------------------
+
+# Materials. The slope is tilted by SLOPE rad (tan 0.48); a block slides on it when the combined
+# friction (geometric mean) is below that: ROCK_FRICTION and SLOPE_FRICTION give 0.32.
+SLOPE = 0.45
+SLOPE_FRICTION = 0.3
+ROCK_FRICTION = 0.35
 
 
 @scene("rockfall", "Rockfall: boulders, cut blocks and faceted stones down a slope into a catch basin")
 def rockfall(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -> SceneInfo:
-    ground_and_fences(world, dim, reach=9.0)
-    slope = -0.45
-    world.add(slab(dim, 4.2, 0.25, 2.0), vec(dim, -3.4, 2.6), role="ground", kind="static",
-              rotor=tilt(world, slope), friction=0.6)
-    # catch basin: a lip at the foot of the slope and a back wall
-    world.add(slab(dim, 0.2, 0.5, 2.0), vec(dim, 1.2, 0.5), role="ground", kind="static")
-    world.add(slab(dim, 0.25, 1.4, 2.0), vec(dim, 6.5, 1.4), role="ground", kind="static")
+    hidden, shown = 0.45, 1.8
+    d = depths(dim, shown, hidden)
+    lo, hi = room(world, vec(dim, -8.2, 0.0, -d), vec(dim, 8.2, 11.0, d), floor={"friction": 0.3},
+                  walls={"friction": 0.3})
+    # the slope: a slab from the left wall whose top face ends LIP m above the basin floor at
+    # x = foot; what leaves it drops into the basin (x > foot) and cannot climb back
+    foot, lip, thick = 0.6, 1.0, 0.25
+    c, s = np.cos(SLOPE), np.sin(SLOPE)
+    top = float(lo[0]) - 0.2
+    half = (foot - top) / c / 2
+    mid = np.array([(foot + top) / 2, lip + (foot - top) / 2 * np.tan(SLOPE)])
+    centre = mid - thick * np.array([s, c])
+    world.add(slab(dim, half, thick, d + 0.3), vec(dim, *centre), role="ground", kind="static",
+              rotor=tilt(world, -SLOPE), friction=SLOPE_FRICTION)
+
+    def surface(x: float) -> float:  # height of the slope's top face at x
+        return lip + (foot - x) * np.tan(SLOPE)
+
+    rocks: list[int] = []
+    per_row = 6
     for i in range(count):
-        x = -6.2 + 1.1 * (i % 5) + rng.uniform(-0.2, 0.2)
-        y = 5.2 + 1.1 * (i // 5)
-        pos = vec(dim, x, y, depth_jitter(dim, rng, 0.35))
+        x = -7.3 + 0.95 * (i % per_row) + rng.uniform(-0.15, 0.15)
+        y = surface(-7.3) + 1.0 + 0.95 * (i // per_row)
+        pos = vec(dim, x, y, depth_jitter(dim, rng, 0.1, shown=1.0))
         R = world.alg.rotor(rng.normal(size=world.alg.k))
         kind = i % 3
         if kind == 0:
-            world.add(Ball(dim, rng.uniform(0.28, 0.42)), pos, role="boulder", rotor=R, friction=0.7)
+            ent = world.add(Ball(dim, rng.uniform(0.28, 0.4)), pos, role="boulder", rotor=R,
+                            friction=ROCK_FRICTION)
         elif kind == 1:
-            h = vec(dim, rng.uniform(0.25, 0.42), rng.uniform(0.2, 0.32), rng.uniform(0.22, 0.38))
-            world.add(Box(h), pos, role="block", rotor=R, friction=0.7)
+            h = vec(dim, rng.uniform(0.25, 0.4), rng.uniform(0.2, 0.3), rng.uniform(0.22, 0.35))
+            ent = world.add(Box(h), pos, role="block", rotor=R, friction=ROCK_FRICTION)
         else:
-            stone = faceted_stone(dim, rng, rng.uniform(0.32, 0.45))
-            world.add(stone, pos, role="facet", rotor=R, friction=0.7)
-    return SceneInfo(centre=(0.0, 3.2), span=17.0)
+            stone = faceted_stone(dim, rng, rng.uniform(0.32, 0.42))
+            ent = world.add(stone, pos, role="facet", rotor=R, friction=ROCK_FRICTION)
+        rocks.append(ent)
+    info = SceneInfo(centre=(0.0, 4.3), span=17.0, bounds=(lo, hi), progress_label="in the basin",
+                     state={"basin": (foot, float(hi[0])), "rocks": rocks})
+
+    def progress(w: DemoWorld) -> tuple[int, int]:
+        handles = [w.physics.handle_of(e) for e in rocks]
+        x = _positions(w, handles)[:, 0]
+        return int(np.sum(x > foot)), len(rocks)
+
+    info.progress = progress
+    return info
+
+
+BALL_RADIUS = 0.22
+
+
+def rack(dim: int, n: int, apex: float, length: float) -> tuple[float, list[tuple[float, float]]]:
+    """Ball radius and (x_0, spread) centres of ``n`` touching balls racked from x_0 = apex over at
+    most ``length`` metres (the radius shrinks from BALL_RADIUS to fit).
+
+    The spread runs along a drawn axis where there is one: a triangle in the (e_0, e_2) plane in
+    4-D and 5-D; a zig-zag two balls wide (+-0.7 r along the hidden e_2, both cut by the slice) in
+    3-D; a straight row in 2-D.
+    """
+    gap = 1.01  # balls 1 % apart, so none starts in contact
+    if dim >= 4:
+        rows = int(np.ceil((np.sqrt(8 * n + 1) - 1) / 2))
+        r = min(BALL_RADIUS, length / (2 + np.sqrt(3) * gap * (rows - 1)))
+        out = []
+        for k in range(rows):
+            for j in range(k + 1):
+                if len(out) < n:
+                    out.append((apex + r + k * np.sqrt(3) * gap * r, (j - k / 2) * 2 * gap * r))
+        return r, out
+    if dim == 3:
+        step = np.sqrt(4 * gap * gap - 1.4 ** 2)
+        r = min(BALL_RADIUS, length / (2 + step * (n - 1)))
+        return r, [(apex + r + i * step * r, 0.7 * r * (1 if i % 2 else -1)) for i in range(n)]
+    r = min(BALL_RADIUS, length / (2 + 2 * gap * (n - 1)))
+    return r, [(apex + r + i * 2 * gap * r, 0.0) for i in range(n)]
 
 
 @scene("billiards", "Billiards: a cue ball breaks a racked cluster on a felt table")
 def billiards(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -> SceneInfo:
-    ground_and_fences(world, dim, reach=7.0, fence=2.2)
-    top = 0.8
-    world.add(slab(dim, 5.0, top / 2, 2.4), vec(dim, 0.0, top / 2), role="table", kind="static", friction=0.2)
-    for side in (-1.0, 1.0):  # cushions at the ends of the table
-        world.add(slab(dim, 0.2, 0.25, 2.4), vec(dim, side * 5.2, top + 0.25), role="ground", kind="static",
-                  restitution=0.8)
-    r = 0.22
-    placed = 0
-    layer = 0
-    while placed < count - 1:  # a triangular rack opening toward -e_0, spread over the depth axes
-        for j in range(layer + 1):
-            if placed >= count - 1:
-                break
-            d = (j - layer / 2) * 2.05 * r
-            depth = np.zeros(max(dim - 2, 0))
-            if dim > 2:
-                depth[-1] = d  # the rack fans out along the hidden axis
-            pos = vec(dim, 1.5 + layer * 1.8 * r, top + r, 0.0)
-            pos[2:] = depth
-            if dim == 2:
-                pos[0] = 1.5 + placed * 2.05 * r
-            world.add(Ball(dim, r), pos, role="ball", restitution=0.9, friction=0.1)
-            placed += 1
-        layer += 1
-    world.add(Ball(dim, r), vec(dim, -3.5, top + r, 0.0), role="boulder", velocity=vec(dim, 7.0, 0.0, 0.0),
+    n = max(count - 1, 1)
+    r, spots = rack(dim, n, apex=0.4, length=4.4)
+    # cushions: the table is 10 m long; along hidden axes a lane 1.9 r wide each side keeps every
+    # ball's centre within 0.9 r of the slice, so the slice cuts every ball
+    spread = max(abs(sp) for _, sp in spots) + r
+    d = depths(dim, max(spread + 1.0, 2.0), 1.9 * r)
+    lo, hi = room(world, vec(dim, -5.0, 0.0, -d), vec(dim, 5.0, 4.0, d), floor_role="table",
+                  floor={"friction": 0.2}, walls={"restitution": 0.8, "friction": 0.1})
+    balls = []
+    for x, sp in spots:
+        pos = vec(dim, x, r)
+        if dim == 3 or dim >= 4:
+            pos[2] = sp
+        balls.append(world.add(Ball(dim, r), pos, role="ball", restitution=0.9, friction=0.1))
+    world.add(Ball(dim, r), vec(dim, -3.5, r), role="cue", velocity=vec(dim, 7.0, 0.0, 0.0),
               restitution=0.9, friction=0.1)
-    return SceneInfo(centre=(0.0, 1.6), span=12.0)
+    start = np.array([[x, sp] for x, sp in spots])
+    info = SceneInfo(centre=(0.0, 1.2), span=11.0, bounds=(lo, hi), progress_label="moved by the break",
+                     state={"radius": r, "rack": balls, "spots": start})
+
+    def progress(w: DemoWorld) -> tuple[int, int]:
+        x = _positions(w, [w.physics.handle_of(e) for e in balls])[:, 0]
+        return int(np.sum(np.abs(x - start[:, 0]) > r)), len(balls)
+
+    info.progress = progress
+    return info
 
 
 @scene("conveyor", "Conveyor: a kinematic pusher sweeps crates along a belt and off its end down a chute")
 def conveyor(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -> SceneInfo:
-    ground_and_fences(world, dim, reach=9.0)
-    height, start, end, speed = 2.6, -6.5, -0.6, 1.2
-    belt = slab(dim, (end - start) / 2, 0.15, 1.2)
-    world.add(belt, vec(dim, (start + end) / 2, height - 0.15), role="roller", kind="static", friction=0.4)
-    # the pusher: a kinematic paddle riding the belt at constant speed, sent back when it reaches the end
-    paddle = world.add(slab(dim, 0.12, 0.35, 1.1), vec(dim, start, height + 0.36), role="crate",
-                       kind="kinematic", velocity=vec(dim, speed, 0.0, 0.0))
-    # chute from the end of the belt down to a bin
-    world.add(slab(dim, 2.0, 0.12, 2.0), vec(dim, 1.2, 1.5), role="ground", kind="static",
-              rotor=tilt(world, -0.55), friction=0.3)
-    world.add(slab(dim, 0.2, 0.9, 2.0), vec(dim, 6.0, 0.9), role="ground", kind="static")
-    info = SceneInfo(centre=(0.0, 2.6), span=16.0, state={"spawned": 0, "count": count, "next": 0.0})
+    d = depths(dim, 1.5, 0.5)
+    lo, hi = room(world, vec(dim, -7.6, 0.0, -d), vec(dim, 7.6, 9.0, d), floor={"friction": 0.2},
+                  walls={"friction": 0.3})
+    height, start, end, speed = 2.6, -6.8, -0.8, 1.2
+    belt = slab(dim, (end - start) / 2, 0.15, np.minimum(d, 1.2))
+    world.add(belt, vec(dim, (start + end) / 2, height - 0.15), role="belt", kind="static", friction=0.4)
+    # the pusher: a kinematic paddle riding the belt at constant speed; it pushes past the belt's
+    # end (so no crate is left on the edge) and is then sent back to the start
+    paddle = world.add(slab(dim, 0.12, 0.35, np.minimum(d, 1.1)), vec(dim, start, height + 0.36),
+                       role="pusher", kind="kinematic", velocity=vec(dim, speed, 0.0, 0.0))
+    # the chute: its top face starts 0.4 m below the belt, just past its end, and meets the floor
+    chute_angle, thick = 0.55, 0.12
+    top0 = np.array([end + 0.15, height - 0.4])
+    length = top0[1] / np.sin(chute_angle) + 0.3
+    c, s = np.cos(chute_angle), np.sin(chute_angle)
+    centre = top0 + (length / 2) * np.array([c, -s]) - thick * np.array([s, c])
+    world.add(slab(dim, length / 2, thick, d + 0.3), vec(dim, *centre), role="ground", kind="static",
+              rotor=tilt(world, -chute_angle), friction=0.2)
+    bin_x = float(top0[0] + top0[1] / np.tan(chute_angle))  # where the chute meets the floor
+    bin_top = 1.2  # a crate past the belt's end and below this height has come down the chute
+    crates: list[int] = []
+    info = SceneInfo(centre=(0.0, 3.2), span=16.0, bounds=(lo, hi), progress_label="in the bin",
+                     state={"spawned": 0, "count": count, "next": 0.0, "bin": (bin_x, float(hi[0])),
+                            "bin_top": bin_top, "crates": crates, "belt_end": end})
 
     def tick(w: DemoWorld, t: float) -> None:
         st = info.state
         h = w.physics.handle_of(paddle)
         x = w.sim.position(h)
-        if x[0] > end - 0.2:  # back to the start of the belt for the next sweep
+        if x[0] > end + 0.3:  # back to the start of the belt for the next sweep
             x[0] = start
             w.sim.set_pose(h, position=x)
         if st["spawned"] >= st["count"] or t < st["next"]:
             return
         he = vec(dim, rng.uniform(0.22, 0.3), rng.uniform(0.2, 0.3), rng.uniform(0.2, 0.3))
-        at = vec(dim, x[0] + 0.9 + rng.uniform(0.0, 1.5), height + 0.8, depth_jitter(dim, rng, 0.25))
-        w.add(Box(he), at,
-              role="crate", rotor=tilt(w, rng.uniform(-0.2, 0.2)), friction=0.6)
+        at = vec(dim, x[0] + 0.9 + rng.uniform(0.0, 1.5), height + 0.8, depth_jitter(dim, rng, 0.1, 0.6))
+        crates.append(w.add(Box(he), at, role="crate", rotor=tilt(w, rng.uniform(-0.2, 0.2)), friction=0.6))
+        st.setdefault("spawn_times", []).append(t)
         st["spawned"] += 1
         st["next"] = t + 0.9
 
+    def progress(w: DemoWorld) -> tuple[int, int]:
+        w.sync()
+        P = _positions(w, [w.physics.handle_of(e) for e in crates])
+        return int(np.sum((P[:, 0] > end) & (P[:, 1] < bin_top))), count
+
     info.tick = tick
+    info.progress = progress
     world.sync()
     tick(world, 0.0)
     return info
@@ -226,4 +359,5 @@ def scene_title(name: str) -> str:
     return SCENES[name][0]
 
 
-__all__ = ["SCENES", "SceneInfo", "build_scene", "scene", "scene_names", "scene_title"]
+__all__ = ["FRAME", "SCENES", "SceneInfo", "build_scene", "run_physics", "scene", "scene_names",
+           "scene_title"]

@@ -33,6 +33,7 @@ class DemoWorld:
         self.physics = PhysicsProcessor(dim)
         esper.add_processor(self.physics)
         self.colours: dict[int, Colour] = {}  # body handle -> colour
+        self.roles: dict[int, str] = {}  # body handle -> role (a key of ROLE_COLOURS)
         self._pending: list[tuple[int, str]] = []
 
     @property
@@ -56,7 +57,9 @@ class DemoWorld:
         esper.switch_world(self.name)
         self.physics.sync()
         for ent, role in self._pending:
-            self.colours[self.physics.handle_of(ent)] = ROLE_COLOURS[role]
+            h = self.physics.handle_of(ent)
+            self.colours[h] = ROLE_COLOURS[role]
+            self.roles[h] = role
         self._pending.clear()
 
     def step(self, seconds: float | None = None) -> None:
