@@ -174,6 +174,23 @@ def _pass(biased, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bia
 
 
 @njit(cache=True)
+def _spec_left(A, B, G, sep, vn0, fast, X, dt):
+    """How much farther than its gap a speculative row that closed faster than ``fast`` before the
+    solve would close within the step, m (0: none)."""
+    top = 0.0
+    for q in range(A.shape[0]):
+        if sep[q] <= 0.0 or vn0[q] >= -fast:
+            continue
+        s = 0.0
+        for j in range(W):
+            s += G[q, 0, j] * X[A[q], j] + G[q, 0, W + j] * X[B[q], j]
+        v = -s * dt - sep[q]
+        if v > top:
+            top = v
+    return top
+
+
+@njit(cache=True)
 def _push_left(A, B, G, lam_n, X):
     """Largest separating normal speed of a row that holds a normal impulse (0 when none)."""
     top = 0.0
@@ -466,7 +483,8 @@ def _couples(A, B, D, inv_I, roll_c, spin_c, load, man, nman, X, npasses):
 @njit(cache=True)
 def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_s, rest, slides_in,
           lam_n_in, lam_t_in, X, inv_m, inv_I, com, dt, passes, bias_free, rate, mscale, iscale, stiff,
-          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, relax_push, shock_ratio,
+          allowance, cap, bounce_thr, stick_tol, slip_speed, relax_tol, relax_extra, relax_push, spec_tol,
+          spec_fast, shock_ratio,
           shock_passes, rolling_in, spin_in, couple_passes, tilt_dead, grav_n):
     """Solve M contact rows in place on the body state X (N_bodies, n + k).
 
@@ -720,11 +738,28 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
         extra += 1
+    # ... and while a speculative row still closes farther than its gap within the step
+    extra = 0
+    while (bias_free > 0 and extra < relax_extra
+           and _spec_left(A, B, G, sep, vn0, spec_fast, X, dt) > spec_tol):
+        _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
+              bias_off, mass_n, X, xab, Vs, dl, vt, nt)
+        extra += 1
     # the push: what the bias moved, taken out of the velocities by the bias-free passes
     push = np.empty((NB, W))
     for i in range(NB):
         for t in range(W):
             push[i, t] = dt * (X_biased[i, t] - X[i, t])
+    # only bodies that overlap something are pushed (solver.py, the push)
+    over = np.zeros(NB, np.bool_)
+    for q in range(M):
+        if sep[q] <= 0.0:
+            over[A[q]] = True
+            over[B[q]] = True
+    for i in range(NB):
+        if not over[i]:
+            for t in range(W):
+                push[i, t] = 0.0
     if bias_free > 0:
         _shock(A, B, sA, sB, row_col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, shock_ratio,
                shock_passes)
@@ -838,5 +873,5 @@ def warm_up():
     inv_I[1] = np.eye(K)
     solve(i1, b1, no, yes, i1.copy(), i1.copy(), nrm, np.zeros((1, N)), f1 + 0.01, f1 + 0.5, f1 + 0.5, f1,
           no.copy(), f1.copy(), np.zeros((1, N)), X, np.array([0.0, 1.0]), inv_I, np.zeros((2, N)),
-          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 30.0, 1,
-          f1 + 0.001, f1 + 0.004, 1, 0.0005, f1.copy())
+          1.0 / 60.0, 2, 1, 10.0, 0.5, 0.5, 600.0, 0.005, 3.0, 1.0, 1e-9, 1e-2, 0.05, 2, 0.5, 0.001, 10.0,
+          30.0, 1, f1 + 0.001, f1 + 0.004, 1, 0.0005, f1.copy())
