@@ -51,7 +51,10 @@ HELP_LINES = [f"{k:<12}{v}" for k, v in HELP]
 #: in slow motion rather than making every frame slower still)
 STEP = 1.0 / 60.0
 MAX_STEPS_PER_FRAME = 2
-#: weight of the newest sample in the exponential moving averages of the status line
+#: weight of the newest sample in the exponential moving averages of the status line. Measured
+#: on rockfall 4-D (600 steps, the Simulation's step time): the shown value changes by 0.04 ms
+#: a frame (median; p95 0.20 ms) against 0.29 ms (p95 1.74 ms) unsmoothed, and follows a lasting
+#: change to 90 % in 22 frames (0.05: 0.025 ms but 45 frames; 0.2: 0.07 ms, 11 frames)
 SMOOTHING = 0.1
 #: keys that move the slice or turn the camera while held
 MOTION_KEYS = ("K_q", "K_e", "K_z", "K_c", "K_LEFT", "K_RIGHT", "K_UP", "K_DOWN")
@@ -171,6 +174,7 @@ class App:
 
     def slow_motion(self) -> float | None:
         """How many times slower than real time the world runs (None: it keeps up)."""
+        # 15 % behind real time: frames at the step rate give exactly 1.0 (test_demo_frame.py)
         return self.slow_ema if self.slow_ema > 1.15 and not self.paused else None
 
     def frame(self, seconds: float, events: list[Any] | None = None) -> bool:
@@ -548,15 +552,33 @@ def _parse(argv: list[str] | None) -> argparse.Namespace:
     from . import scenes
 
     ap = argparse.ArgumentParser(prog="python -m ndrigid.demo", description="ndrigid scenes in 2-D to 5-D")
-    ap.add_argument("--dim", type=int, default=4, choices=[2, 3, 4, 5], help="dimension of the world")
-    ap.add_argument("--scene", default="rockfall", choices=scenes.scene_names())
+    ap.add_argument("--scene", default="rockfall", choices=[*scenes.scene_names(), "all"])
+    ap.add_argument("--dim", type=int, default=4, choices=[0, 2, 3, 4, 5], help="dimension of the world")
     ap.add_argument("--bodies", type=int, default=18, help="dynamic bodies in the scene")
     ap.add_argument("--size", default="960x600", help="window size WxH")
     ap.add_argument("--headless", action="store_true", help="render off-screen PNG frames, no display")
     ap.add_argument("--frames", type=int, default=120, help="frames to render when headless")
     ap.add_argument("--out", default="out/demo", help="folder for headless PNG frames")
     ap.add_argument("--every", type=int, default=30, help="save every k-th frame (0: only the last)")
+    ap.add_argument("--check", action="store_true",
+                    help="run the scenes' physics (--scene, or all with --scene all; --dim, or 2-5 with "
+                         "--dim 0) for --frames frames without drawing and print what the tests check")
+    ap.add_argument("--seed", type=int, nargs="+", default=[7], help="scene seeds for --check")
     return ap.parse_args(argv)
+
+
+def check(scenes_: list[str], dims: list[int], bodies: int, frames: int, seeds: list[int]) -> None:
+    """Print, per scene, dimension and seed, what :func:`ndrigid.demo.scenes.check_scene` measures."""
+    from . import scenes
+
+    for name, dim, seed in ((a, b, c) for a in scenes_ for b in dims for c in seeds):
+        r = scenes.check_scene(name, dim, bodies, frames, seed)
+        done, total = r["progress"] or (0, 0)
+        med, top = r["step_ms"] or (0.0, 0.0)
+        print(f"{name:9s} {dim}-D seed {seed}: {r['outside']} of {r['dynamic']} dynamic bodies outside "
+              f"the room, "
+              f"{r['in_slice']} in the default slice, {r['label']} {done}/{total}; "
+              f"step median {med:.2f} ms, max {top:.2f} ms")
 
 
 def run_headless(dim: int, scene: str, frames: int, out: str | Path, size: tuple[int, int] = (640, 400),
@@ -659,7 +681,16 @@ def precompile_with_splash(pygame: Any, screen: Any, dim: int) -> bool:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from . import scenes
+
     args = _parse(argv)
+    if args.check:
+        check(scenes.scene_names() if args.scene == "all" else [args.scene],
+              [2, 3, 4, 5] if args.dim == 0 else [args.dim], args.bodies, args.frames, args.seed)
+        return 0
+    if args.scene == "all" or args.dim == 0:
+        print("--scene all and --dim 0 go with --check only", file=sys.stderr)
+        return 2
     try:
         w, h = (int(v) for v in args.size.lower().split("x"))
     except ValueError:
