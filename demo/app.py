@@ -224,10 +224,18 @@ class App:
         s = self.scale()
         return np.array([(px[0] - cx) / s + self.info.centre[0], -(px[1] - cy) / s + self.info.centre[1]])
 
+    def look(self) -> tuple[float, float]:
+        """(x_0, x_1) at the middle of the view: the scene's centre, or in 3-D views the point the
+        camera looks at (``SceneInfo.solid_height``, lower, as the camera looks down on it)."""
+        c = self.info.centre
+        if self.flat().slice_dim == 3 and self.info.solid_height is not None:
+            return (c[0], self.info.solid_height)
+        return (c[0], c[1])
+
     def camera(self) -> Any:
         from ndrigid.core.geometry.slicing import make_camera, orbit_view
 
-        target = np.array([self.info.centre[0], self.info.centre[1], 0.0])
+        target = np.array([*self.look(), 0.0])
         return make_camera(orbit_view(self.yaw, self.pitch), target, self.info.span * 1.6, self.perspective)
 
     def project3(self, P: np.ndarray, cam: Any) -> tuple[np.ndarray, np.ndarray]:
@@ -383,7 +391,7 @@ class App:
             v = self._view = SliceView(self.sim, self.flat(), span=self.info.span, pygame=self.pg,
                                        colours=self.world.colours, static_colour=P.BEDROCK,
                                        outline=P.OUTLINE_INK)
-        v.flat, v.span, v.centre = self.flat(), self.info.span, (self.info.centre[0], self.info.centre[1])
+        v.flat, v.span, v.centre = self.flat(), self.info.span, self.look()
         v.yaw, v.pitch, v.perspective = self.yaw, self.pitch, self.perspective
         v.colours = self.world.colours
         v.highlight = {self.grab.handle} if self.grab else set()
@@ -445,21 +453,25 @@ class App:
         x0, y0 = self.size[0] - W - 8, 8
         inset = pg.Surface((W, H))
         inset.fill(P.DEEP_SLATE)
-        span = self.info.span
+        lo, hi = self.info.bounds
         c = self.info.centre
-        cam = make_camera(self.inset_view, np.array([c[0], c[1], 0.0]), span * 1.2, True)
+        top = min(float(hi[1]), c[1] + self.info.span * 0.3)
+        # an orthographic camera on the room's middle, scaled so the whole room fits the inset
+        target = np.array([(lo[0] + hi[0]) / 2, (lo[1] + top) / 2, 0.0])
+        cam = make_camera(self.inset_view, target, self.info.span, False)
+        room = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], top) for z in (lo[2], hi[2])])
+        xy, _ = project_points(room, cam)
+        s = min((W - 12) / (2 * np.abs(xy[:, 0]).max()), (H - 24) / (2 * np.abs(xy[:, 1]).max()))
+        span = W / s
         view = self.view()
-        whole = replace(view, flat=axis_flat(3, []), highlight=set(view.highlight))
+        whole = replace(view, flat=axis_flat(3, []), highlight=set(view.highlight), span=span)
         whole._regions = view._regions
         box = self.wall_box([0, 1, 2], height=0.35, thick=0.3, below=0.5)
         whole.draw(inset, poses=self.poses(), region=box, camera=cam, thin=True)
         # the slice plane x_2 = w across the room, clipped to the inset
         w = float(self.offsets[0])
-        lo, hi = self.info.bounds
-        top = min(float(hi[1]), c[1] + span * 0.3)
         corners = np.array([[lo[0], lo[1], w], [hi[0], lo[1], w], [hi[0], top, w], [lo[0], top, w]])
         xy, _ = project_points(corners, cam)
-        s = W / span
         ring = np.stack([W / 2 + xy[:, 0] * s, H / 2 - xy[:, 1] * s], axis=1)
         ring = clip_polygon(ring, (0, 0), (W - 1, H - 1))
         self.inset_ring = ring

@@ -47,6 +47,7 @@ class SceneInfo:
         progress: called with the world, returns (done, total) of the scene's story (rocks in the
             basin, balls moved by the break, crates in the bin), or None.
         progress_label: what ``progress`` counts, for the status line.
+        solid_height: x_1 of the point the 3-D views' camera looks at (None: ``centre``'s).
     """
 
     centre: tuple[float, float]
@@ -55,6 +56,7 @@ class SceneInfo:
     tick: Callable[[DemoWorld, float], None] | None = None
     progress: Callable[[DemoWorld], tuple[int, int]] | None = None
     progress_label: str = ""
+    solid_height: float | None = None
     state: dict[str, Any] = field(default_factory=dict)
 
 
@@ -267,6 +269,7 @@ def rockfall(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -
             ent = world.add(stone, pos, role="facet", rotor=R, friction=ROCK_FRICTION)
         rocks.append(ent)
     info = SceneInfo(centre=(0.0, 4.3), span=17.0, bounds=(lo, hi), progress_label="in the basin",
+                     solid_height=2.6,
                      state={"basin": (foot, float(hi[0])), "rocks": rocks})
 
     def progress(w: DemoWorld) -> tuple[int, int]:
@@ -365,6 +368,7 @@ def conveyor(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -
     bin_top = 1.2  # a crate past the belt's end and below this height has come down the chute
     crates: list[int] = []
     info = SceneInfo(centre=(0.0, 3.2), span=16.0, bounds=(lo, hi), progress_label="in the bin",
+                     solid_height=2.2,
                      state={"spawned": 0, "count": count, "next": 0.0, "bin": (bin_x, float(hi[0])),
                             "bin_top": bin_top, "crates": crates, "belt_end": end})
 
