@@ -397,9 +397,12 @@ class App:
         v.highlight = {self.grab.handle} if self.grab else set()
         return v
 
-    def poses(self) -> tuple[np.ndarray, np.ndarray]:
+    def poses(self) -> tuple[np.ndarray, np.ndarray] | None:
         """Poses to draw: interpolated between the last two fixed steps by the banked fraction of a
-        step (the adapter's FixedStepper), so motion stays smooth whatever the frame rate."""
+        step (the adapter's FixedStepper), so motion stays smooth whatever the frame rate. Headless
+        frames take exactly one step each and draw the poses it reached (None: the current ones)."""
+        if self.headless:
+            return None
         return self.world.physics.bridge.stepper.interpolated()
 
     def wall_box(self, axes: list[int], height: float | None = None, thick: float = 0.4,
