@@ -1491,6 +1491,18 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
 
     for _ in range(int(settings.solver_passes)):
         sweep(True)
+
+    def spec_left() -> float:
+        """How much farther than its gap a fast speculative row would close within the step, m."""
+        over = [-float(r.G[0] @ np.concatenate([X[r.a], X[r.b]])) * dt - r.sep
+                for r in prepared if r.sep > 0.0 and r.vn0 < -_SPEC_FAST]
+        return max(max(over), 0.0) if over else 0.0
+
+    # more biased passes while a fast speculative row would still close past its gap (solver.py)
+    extra = 0
+    while int(settings.bias_free_passes) and extra < _RELAX_EXTRA and spec_left() > _SPEC_TOL:
+        sweep(True)
+        extra += 1
     X_biased = X.copy()
     for _ in range(int(settings.bias_free_passes)):
         sweep(False)
@@ -1508,17 +1520,6 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
         sweep(False)
         extra += 1
 
-    def spec_left() -> float:
-        """How much farther than its gap a fast speculative row would close within the step, m."""
-        over = [-float(r.G[0] @ np.concatenate([X[r.a], X[r.b]])) * dt - r.sep
-                for r in prepared if r.sep > 0.0 and r.vn0 < -_SPEC_FAST]
-        return max(max(over), 0.0) if over else 0.0
-
-    # ... and while a speculative row would still close farther than its gap (solver.py)
-    extra = 0
-    while int(settings.bias_free_passes) and extra < _RELAX_EXTRA and spec_left() > _SPEC_TOL:
-        sweep(False)
-        extra += 1
 
     X_unbiased = X.copy()  # the push is what the bias-free passes took out
     if int(settings.bias_free_passes) and batching == "point":
@@ -1583,15 +1584,13 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, active: list[int], 
             part = r.H[0, w:] if side else r.H[0, :w]
             toi_move[body] = toi_move.get(body, np.zeros(w)) + p_pos * part
 
-    # velocities back; the push moves positions by dt x (biased - unbiased velocity), for the
-    # bodies that overlap something (solver.py, the push)
-    overlapping = {r.a for r in prepared if r.sep <= 0.0} | {r.b for r in prepared if r.sep <= 0.0}
+    # velocities back; the push moves positions by dt x (biased - unbiased velocity)
     for body in range(bodies.count):
         if not dyn[body]:
             continue
         bodies.velocity[body] = X[body, :n]
         bodies.angular_velocity[body] = X[body, n:]
-        dX = dt * (X_biased[body] - X_unbiased[body]) if body in overlapping else np.zeros(w)
+        dX = dt * (X_biased[body] - X_unbiased[body])
         if body in toi_move:
             dX = dX + toi_move[body]
         if np.any(dX != 0.0):

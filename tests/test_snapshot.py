@@ -67,7 +67,8 @@ def _mixed_world(dim: int) -> Simulation:
 @dims()
 def test_restored_worlds_step_on_bit_for_bit(dim: int, tmp_path) -> None:
     sim = _mixed_world(dim)
-    assert sim.contacts is not None and sim.contacts.count > 0
+    # warm contacts, or (5-D) an island asleep that the kinematic ball will wake
+    assert sim.contacts is not None and (sim.contacts.count > 0 or not np.all(sim.bodies.awake))
     path = tmp_path / "world.npz"
     state = sim.save_state()
     save_world(sim, path)

@@ -206,12 +206,13 @@ _RELAX_EXTRA = 27
 # while it settles: the extra passes ran in most steps and cost 7 ms of a 24 ms step, though
 # its pushes stay below 0.1 m/s
 _RELAX_PUSH = 0.5
-# ... and also while a speculative row that closed faster than _SPEC_FAST (m/s) before the solve
-# still closes more than _SPEC_TOL (m) farther than its gap within the step (at most
-# _RELAX_EXTRA more): Gauss-Seidel converges slowly on the manifold of a small fast body, which
-# then passed thin walls (measured: a 4-D simplex of edge 0.1 m at 200 m/s head-on closed at
-# 62 m/s where its gaps allowed 58-59.5 after the fixed passes, and passed a 5 mm wall in 7 of
-# 10 shots). Without the speed floor the check held in 1,300 of 1,316 solves of the settling 4-D
+# the biased passes go on (at most _RELAX_EXTRA more) while a speculative row that closed faster
+# than _SPEC_FAST (m/s) before the solve would still close more than _SPEC_TOL (m) farther than its
+# gap within the step: Gauss-Seidel converges slowly on the manifold of a small fast body, and the
+# push (the velocity change of the bias-free passes) then carried it through thin walls
+# (measured: a 4-D simplex of edge 0.1 m at 200 m/s head-on closed at 62 m/s where its gaps
+# allowed 58-59.5 after the fixed passes, and passed a 5 mm wall in 7 of 10 shots; 2 of 10 with
+# the extra passes). Without the speed floor the check held in 1,300 of 1,316 solves of the settling 4-D
 # pile of 300 (rows between resting bodies that cannot all be met) and ran every extra pass
 _SPEC_TOL = 0.001
 _SPEC_FAST = 10.0
@@ -666,6 +667,14 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     bias_free = int(settings.bias_free_passes)
     for _ in range(iters):
         _sweep(batches, Xf, X, True)
+    # more biased passes while a fast speculative row would still close past its gap: the push
+    # below is the change of velocity in the bias-free passes, so these rows must be converged
+    # before X_biased is taken, or a fast body is pushed with its unconverged velocity
+    extra = 0
+    fast = spec & (vn0 < -_SPEC_FAST)
+    while bias_free and extra < _RELAX_EXTRA and _spec_left(Gn, Xf, el, sep, fast, dt) > _SPEC_TOL:
+        _sweep(batches, Xf, X, True)
+        extra += 1
     X_biased = X.copy()
     for _ in range(bias_free):
         _sweep(batches, Xf, X, False)
@@ -676,22 +685,9 @@ def _solve_rows(alg: Algebra, bodies: Bodies, c: ContactSet, rows: IntArray, dyn
     while deep and bias_free and extra < _RELAX_EXTRA and _push_left(Gn, Xf, el, lam_n) > _RELAX_TOL:
         _sweep(batches, Xf, X, False)
         extra += 1
-    extra = 0
-    fast = spec & (vn0 < -_SPEC_FAST)
-    while bias_free and extra < _RELAX_EXTRA and _spec_left(Gn, Xf, el, sep, fast, dt) > _SPEC_TOL:
-        _sweep(batches, Xf, X, False)
-        extra += 1
     # the push: what the bias moved, taken out of the velocities by the bias-free pass
     moved = np.nonzero(dyn)[0]
     push_dX = dt * (X_biased[moved] - X[moved])
-    # a body that overlaps nothing (all its rows speculative) is not pushed: what the bias-free
-    # passes changed of its velocity is its rigid rows converging further, not bias taken out, and
-    # pushing by it moved the body as if with the unconverged biased velocity (measured: a small
-    # 3-D simplex at 200 m/s head-on passed a 5 mm wall 7 times in 10 shots, 1 in 10 after)
-    over = np.zeros(N, dtype=bool)
-    over[a[~spec]] = True
-    over[b[~spec]] = True
-    push_dX[~over[moved]] = 0.0
     if bias_free and batching == "point":
         _shock_sweep(a, b, sa, sb, colour, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, Xf, el, dyn)
     roll_c = combine_friction(bodies.rolling_resistance[a], bodies.rolling_resistance[b])

@@ -727,6 +727,13 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
     for _ in range(passes):
         _pass(True, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
+    # more biased passes while a fast speculative row would still close past its gap (solver.py)
+    extra = 0
+    while (bias_free > 0 and extra < relax_extra
+           and _spec_left(A, B, G, sep, vn0, spec_fast, X, dt) > spec_tol):
+        _pass(True, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
+              bias_off, mass_n, X, xab, Vs, dl, vt, nt)
+        extra += 1
     X_biased = X.copy()
     for _ in range(bias_free):
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
@@ -738,28 +745,13 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
               bias_off, mass_n, X, xab, Vs, dl, vt, nt)
         extra += 1
-    # ... and while a speculative row still closes farther than its gap within the step
-    extra = 0
-    while (bias_free > 0 and extra < relax_extra
-           and _spec_left(A, B, G, sep, vn0, spec_fast, X, dt) > spec_tol):
-        _pass(False, A, B, G, H, k01, kti, mu, mu_tol, sl, lam_n, lam_t, max_n, bias_on, keep_on, gain_on,
-              bias_off, mass_n, X, xab, Vs, dl, vt, nt)
-        extra += 1
+
     # the push: what the bias moved, taken out of the velocities by the bias-free passes
     push = np.empty((NB, W))
     for i in range(NB):
         for t in range(W):
             push[i, t] = dt * (X_biased[i, t] - X[i, t])
-    # only bodies that overlap something are pushed (solver.py, the push)
-    over = np.zeros(NB, np.bool_)
-    for q in range(M):
-        if sep[q] <= 0.0:
-            over[A[q]] = True
-            over[B[q]] = True
-    for i in range(NB):
-        if not over[i]:
-            for t in range(W):
-                push[i, t] = 0.0
+
     if bias_free > 0:
         _shock(A, B, sA, sB, row_col, lam_n, lam_t, mu, bias_off, ka0, kb0, G, H, X, shock_ratio,
                shock_passes)
