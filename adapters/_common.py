@@ -447,19 +447,7 @@ class PhysicsBridge(Generic[E]):
         self._free = list(range(len(self._slot_handle) - 1, -1, -1))
         self._gone.clear()
         for e, h, rb, t, v in plan:
-            new_t, new_v = t is None, v is None
-            t = Transform() if t is None else t
-            v = Velocity() if v is None else v
-            slot = self._free.pop() if self._free else self._grow_slots()
-            self._slot_handle[slot] = h
-            for c in (t, v):
-                c._store, c._slot = st, slot
-            t._position = t._rotor = None
-            v._linear = v._angular = None
-            self._bound[e] = _Binding(rb, t, v, h, slot)
-            self._handle_entity[h] = e
-            if new_t or new_v:
-                attach(e, t if new_t else None, v if new_v else None)
+            self._own(e, rb, t, v, h, attach)
         self.stepper.accumulator = float(saved["accumulator"])
         self.stepper.forget_previous()
         self._stale = True
@@ -609,19 +597,18 @@ class PhysicsBridge(Generic[E]):
                 raise InputError(f"Velocity of entity {e!r}: expected zero for a static body, got "
                                  f"{v._linear!r}, {v._angular!r}")
         try:  # everything add_body checks (masses, materials, ...), nothing added
-            self.sim.check_body(
-                rb.shape, position=None if t is None else t.position, rotor=None if t is None else t.rotor,
-                velocity=None if v is None else v.linear, angular_velocity=None if v is None else v.angular,
-                **rb.body_arguments())
+            self.sim.check_body(rb.shape, **_body_call(rb, t, v))
         except (InputError, InputTypeError) as exc:
             raise type(exc)(f"RigidBody of entity {e!r}: {exc}") from exc
 
     def _bind(self, e: E, rb: RigidBody, t: Transform | None, v: Velocity | None,
               attach: Callable[[E, Transform | None, Velocity | None], None]) -> None:
-        h = self.sim.add_body(
-            rb.shape, position=None if t is None else t.position, rotor=None if t is None else t.rotor,
-            velocity=None if v is None else v.linear, angular_velocity=None if v is None else v.angular,
-            **rb.body_arguments())
+        h = self.sim.add_body(rb.shape, **_body_call(rb, t, v))
+        self._own(e, rb, t, v, h, attach)
+
+    def _own(self, e: E, rb: RigidBody, t: Transform | None, v: Velocity | None, h: int,
+             attach: Callable[[E, Transform | None, Velocity | None], None]) -> None:
+        """Bind the entity's components (new ones where it has none) to body ``h``."""
         new_t, new_v = t is None, v is None
         t = Transform() if t is None else t
         v = Velocity() if v is None else v
@@ -775,6 +762,13 @@ class PhysicsBridge(Generic[E]):
         if error is not None:
             raise error
         return taken
+
+
+def _body_call(rb: RigidBody, t: Transform | None, v: Velocity | None) -> dict[str, Any]:
+    """Keyword arguments of ``Simulation.add_body`` for a RigidBody and its starting components."""
+    return {"position": None if t is None else t.position, "rotor": None if t is None else t.rotor,
+            "velocity": None if v is None else v.linear, "angular_velocity": None if v is None else v.angular,
+            **rb.body_arguments()}
 
 
 def wake(sim: Any, rows: NDArray[np.int64]) -> None:
