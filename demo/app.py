@@ -366,6 +366,13 @@ class App:
     # -- drawing ----------------------------------------------------------------------------------
 
     def draw(self, surf: Any) -> None:
+        self.draw_scene(surf)
+        self.draw_status(surf)
+        if self.show_help:
+            self.draw_help(surf)
+
+    def draw_scene(self, surf: Any) -> None:
+        """The scene's view (and the 3-D world's inset) without the title and status bars."""
         from . import palette as P
 
         surf.fill(P.NIGHT_SLATE)
@@ -375,9 +382,6 @@ class App:
                 self.draw_inset(surf)
         else:
             self.draw_solid(surf)
-        self.draw_status(surf)
-        if self.show_help:
-            self.draw_help(surf)
 
     def view(self) -> Any:
         """The public drawing helper (ndrigid.adapters.pygame_draw), kept across frames (its
@@ -572,13 +576,31 @@ def _parse(argv: list[str] | None) -> argparse.Namespace:
     ap.add_argument("--bodies", type=int, default=18, help="dynamic bodies in the scene")
     ap.add_argument("--size", default="960x600", help="window size WxH")
     ap.add_argument("--headless", action="store_true", help="render off-screen PNG frames, no display")
-    ap.add_argument("--frames", type=int, default=120, help="frames to render when headless")
-    ap.add_argument("--out", default="out/demo", help="folder for headless PNG frames")
+    ap.add_argument("--frames", type=int, default=None,
+                    help="frames to render when headless (default 120), steps per tile with --tour "
+                         "(default 150)")
+    ap.add_argument("--out", default=None,
+                    help="headless output: a folder for frames (default out/demo), or with --teach / "
+                         "--tour a .png file or a folder for teach_<a>d_<b>d.png / tour.png")
     ap.add_argument("--every", type=int, default=30, help="save every k-th frame (0: only the last)")
     ap.add_argument("--check", action="store_true",
                     help="run the scenes' physics (--scene, or all with --scene all; --dim, or 2-5 with "
                          "--dim 0) for --frames frames without drawing and print what the tests check")
     ap.add_argument("--seed", type=int, nargs="+", default=[7], help="scene seeds for --check")
+    ap.add_argument("--teach", type=int, nargs="*", default=None, metavar="DIM",
+                    help="the teaching scene: one box tumbling in two dimensions side by side (default "
+                         "3 5) with live plots of energy, |L| and the momentum shares")
+    ap.add_argument("--gyroscopic", default="split", choices=["split", "implicit"],
+                    help="integrator of the teaching scene (Settings.gyroscopic)")
+    ap.add_argument("--seconds", type=float, default=None,
+                    help="simulated seconds of the headless teaching plot (default 20) or of the "
+                         "tour's teaching tile (default 12)")
+    ap.add_argument("--tour", action="store_true",
+                    help="render every scene in 2-D to 5-D and the teaching scene to one contact sheet PNG")
+    ap.add_argument("--tile", default="320x200", help="tile size WxH of the --tour sheet")
+    ap.add_argument("--measure", type=float, default=None, metavar="SECONDS",
+                    help="open the window and print the frame rate of each scene (--scene, or every "
+                         "scene with --scene all; or of --teach) over SECONDS after 1 s of warm-up")
     return ap.parse_args(argv)
 
 
@@ -695,28 +717,139 @@ def precompile_with_splash(pygame: Any, screen: Any, dim: int) -> bool:
     return True
 
 
+def _size(text: str, option: str) -> tuple[int, int] | None:
+    try:
+        w, h = (int(v) for v in text.lower().split("x"))
+    except ValueError:
+        w = h = 0
+    if w < 80 or h < 80:
+        print(f"{option}: expected WxH like 960x600 (at least 80x80), got {text!r}", file=sys.stderr)
+        return None
+    return w, h
+
+
+def _png(out: str | None, default: str) -> Path:
+    """``--out`` as a PNG path: the file itself if it ends in .png, else ``default`` in that folder."""
+    if out is None:
+        return Path("out/demo") / default
+    p = Path(out)
+    return p if p.suffix.lower() == ".png" else p / default
+
+
+def window_loop(pygame: Any, screen: Any, app: Any, seconds: float | None = None,
+                warmup: float = 0.0, busy: list[float] | None = None) -> list[float]:
+    """The window's frame loop (events, physics, drawing, flip, at most 60 frames a second) until
+    the app says quit, or for ``warmup`` + ``seconds`` of wall time. Returns the times
+    (time.perf_counter) at which the frames after the warm-up were shown; ``busy`` gets the
+    seconds each of those frames worked before the wait for the 60 Hz cap."""
+    clock = pygame.time.Clock()
+    shown: list[float] = []
+    start = last = time.perf_counter()
+    running = True
+    while running:
+        now = time.perf_counter()
+        dt, last = min(now - last, 0.1), now
+        running = app.frame(dt)
+        app.draw(screen)
+        pygame.display.flip()
+        worked = time.perf_counter() - now
+        clock.tick(60)
+        app.clock_fps = clock.get_fps()
+        end = time.perf_counter()
+        if seconds is not None:
+            if end - start >= warmup:
+                shown.append(end)
+                if busy is not None:
+                    busy.append(worked)
+            if end - start >= warmup + seconds:
+                break
+    return shown
+
+
+def frame_rate(shown: list[float], busy: list[float] | None = None) -> dict[str, float]:
+    """Frames per second, median and slowest frame (ms) of the times :func:`window_loop` returns,
+    and the median work of a frame before the 60 Hz wait (ms; 0 without ``busy``)."""
+    gaps = np.diff(np.asarray(shown))
+    work = float(1e3 * np.median(busy)) if busy else 0.0
+    if len(gaps) == 0:
+        return {"fps": 0.0, "median_ms": 0.0, "max_ms": 0.0, "busy_ms": work}
+    return {"fps": float(len(gaps) / (shown[-1] - shown[0])), "median_ms": float(1e3 * np.median(gaps)),
+            "max_ms": float(1e3 * gaps.max()), "busy_ms": work}
+
+
+def _measured(r: dict[str, float], seconds: float) -> str:
+    return (f"{r['fps']:.1f} fps over {seconds:g} s, median frame {r['median_ms']:.1f} ms "
+            f"(of which work {r['busy_ms']:.1f} ms, the rest waits for the 60 Hz cap), "
+            f"slowest {r['max_ms']:.1f} ms")
+
+
 def main(argv: list[str] | None = None) -> int:
     from . import scenes
 
     args = _parse(argv)
+    for option, value, least in (("--measure", args.measure, 0.0), ("--seconds", args.seconds, 0.0),
+                                 ("--frames", args.frames, 0)):
+        if value is not None and not value > least:
+            print(f"{option}: expected a number above {least}, got {value}", file=sys.stderr)
+            return 2
     if args.check:
         check(scenes.scene_names() if args.scene == "all" else [args.scene],
-              [2, 3, 4, 5] if args.dim == 0 else [args.dim], args.bodies, args.frames, args.seed)
+              [2, 3, 4, 5] if args.dim == 0 else [args.dim], args.bodies, args.frames or 120, args.seed)
         return 0
-    if args.scene == "all" or args.dim == 0:
-        print("--scene all and --dim 0 go with --check only", file=sys.stderr)
+    if args.tour:
+        from .tour import TEACH_FRAMES, run_tour
+
+        tile = _size(args.tile, "--tile")
+        if tile is None:
+            return 2
+        teach = TEACH_FRAMES if args.seconds is None else max(1, int(round(args.seconds / STEP)))
+        res = run_tour(_png(args.out, "tour.png"), frames=args.frames or 150, tile=tile, bodies=args.bodies,
+                       teach_frames=teach)
+        print(f"tour: {len(res['tiles'])} tiles, {res['size'][0]}x{res['size'][1]} pixels, {res['path']} "
+              f"({res['path'].stat().st_size / 1e3:.0f} kB)")
+        return 0
+    teach_dims = None
+    if args.teach is not None:
+        from ndrigid.core import InputError, InputTypeError
+
+        from .teach import DEFAULT_DIMS, check_dims
+
+        try:
+            teach_dims = check_dims(args.teach or DEFAULT_DIMS)
+        except (InputError, InputTypeError) as exc:
+            print(f"--teach: {exc}", file=sys.stderr)
+            return 2
+    elif (args.scene == "all" and args.measure is None) or args.dim == 0:
+        print("--scene all goes with --check or --measure, --dim 0 with --check only", file=sys.stderr)
         return 2
-    try:
-        w, h = (int(v) for v in args.size.lower().split("x"))
-    except ValueError:
-        print(f"--size: expected WxH like 960x600, got {args.size!r}", file=sys.stderr)
+    size = _size(args.size, "--size")
+    if size is None:
+        return 2
+    w, h = size
+    if args.measure is not None and not _display_available():
+        print("--measure needs a real window and no display was found (under a virtual X server: "
+              "xvfb-run -a -s '-screen 0 1280x800x24' python -m ndrigid.demo ...)", file=sys.stderr)
         return 2
     if not args.headless and not _display_available():
         print("no display found: rendering headless frames instead (pass --headless to say so)",
               file=sys.stderr)
         args.headless = True
+    if args.headless and teach_dims is not None:
+        from .teach import render_teach
+
+        a, b = teach_dims
+        res = render_teach(teach_dims, 20.0 if args.seconds is None else args.seconds,
+                           _png(args.out, f"teach_{a}d_{b}d.png"), (w, h), args.gyroscopic)
+        for d, tb in zip(res["data"], res["app"].tumbles, strict=True):
+            e = np.abs(d["energy"] / tb.energy0 - 1).max()
+            m = np.abs(d["momentum"] / tb.momentum0 - 1).max()
+            print(f"{tb.dim}-D, gyroscopic '{tb.mode}', {d['time'][-1]:.1f} s: largest change of the "
+                  f"kinetic energy {e:.1e}, of |L| {m:.1e} (relative)")
+        print(f"plot: {res['path']}")
+        return 0
     if args.headless:
-        res = run_headless(args.dim, args.scene, args.frames, args.out, (w, h), args.bodies, args.every)
+        res = run_headless(args.dim, args.scene, args.frames or 120, args.out or "out/demo", (w, h),
+                           args.bodies, args.every)
         s = res["step_ms"]
         print(f"{args.scene} {args.dim}-D: {res['frames']} frames, step time mean {s['mean']:.2f} ms, "
               f"median {s['median']:.2f} ms, max {s['max']:.2f} ms; last frame {res['last']}")
@@ -728,20 +861,34 @@ def main(argv: list[str] | None = None) -> int:
     pygame.init()
     screen = pygame.display.set_mode((w, h))
     pygame.display.set_caption("ndrigid")
+    if teach_dims is not None:
+        from .teach import TeachApp
+
+        app: Any = TeachApp(pygame, teach_dims, (w, h), args.gyroscopic)
+        if args.measure is not None:
+            busy: list[float] = []
+            r = frame_rate(window_loop(pygame, screen, app, args.measure, warmup=1.0, busy=busy), busy)
+            print(f"teach {teach_dims[0]}-D and {teach_dims[1]}-D in a {w}x{h} window "
+                  f"({pygame.display.get_driver()}): {_measured(r, args.measure)}")
+        else:
+            window_loop(pygame, screen, app)
+        pygame.quit()
+        return 0
     if not precompile_with_splash(pygame, screen, args.dim):
         pygame.quit()
         return 0
+    if args.measure is not None:
+        for name in scenes.scene_names() if args.scene == "all" else [args.scene]:
+            app = App(pygame, args.dim, name, (w, h), args.bodies)
+            busy = []
+            r = frame_rate(window_loop(pygame, screen, app, args.measure, warmup=1.0, busy=busy), busy)
+            st = np.array(app.step_times[60:] or app.step_times) * 1e3
+            print(f"{name:9s} {args.dim}-D in a {w}x{h} window ({pygame.display.get_driver()}): "
+                  f"{_measured(r, args.measure)}; physics step median {np.median(st):.2f} ms")
+            app.world.close()
+        pygame.quit()
+        return 0
     app = App(pygame, args.dim, args.scene, (w, h), args.bodies)
-    clock = pygame.time.Clock()
-    running = True
-    last = time.perf_counter()
-    while running:
-        now = time.perf_counter()
-        dt, last = min(now - last, 0.1), now
-        running = app.frame(dt)
-        app.draw(screen)
-        pygame.display.flip()
-        clock.tick(60)
-        app.clock_fps = clock.get_fps()
+    window_loop(pygame, screen, app)
     pygame.quit()
     return 0
