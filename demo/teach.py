@@ -44,11 +44,13 @@ from . import palette as P
 #: make e_0^e_2 the middle principal plane of the three planes of e_0, e_1, e_2.
 HALF = (0.15, 0.4, 0.7)
 #: spin in the e_0^e_2 plane (rad/s) and the nudge in every other plane (fraction of SPIN).
-#: Measured (split mode, 60 Hz, ``python -m ndrigid.demo --teach 3 5 --headless --seconds 20``):
-#: the spin plane's share first drops below one half at 3.1 s in 3-D and 1.7 s in 5-D, and again
-#: every 6.0 s in 3-D, so a window shows a flip within seconds; the largest energy error over
-#: 10 s is 1.0e-5 (3-D) and 2.0e-4 (5-D), half the documented 0.04 %. At 4 rad/s the 5-D error
-#: is 3.6e-4, too close to it; at 2 rad/s the first 3-D flip waits 4.7 s.
+#: Measured with :class:`Tumble` (split mode, 60 Hz, 20 s; the energy figures are also what
+#: ``python -m ndrigid.demo --teach 3 5 --headless --seconds 10`` prints): the spin plane's share
+#: first drops below one half at 3.1 s in 3-D and 1.7 s in 5-D, and again every 6.0 s in 3-D, so
+#: a window shows a flip within seconds; the largest energy error over 10 s is 1.0e-5 (3-D) and
+#: 2.0e-4 (5-D), half the documented 0.04 %. At 4 rad/s the 5-D error is 3.6e-4, too close to
+#: it; at 2 rad/s the first 3-D flip waits 4.7 s. A nudge of 1 % delays the first 3-D flip to
+#: 3.5 s, 5 % brings it to 2.6 s.
 SPIN = 3.0
 NUDGE = 0.02
 #: seconds of history the live plots show (the window scrolls after that)
