@@ -64,8 +64,9 @@ def _moving_kinematic(bodies: Bodies) -> NDArray[np.bool_]:
                                          | np.any(bodies.angular_velocity != 0.0, axis=1))
 
 
-def island_labels(bodies: Bodies, contacts: ContactSet | None) -> IntArray:
-    """Island label (N,) of every body; bodies that are not dynamic get -1."""
+def island_labels(bodies: Bodies, contacts: ContactSet | None, edges: IntArray | None = None) -> IntArray:
+    """Island label (N,) of every body; bodies that are not dynamic get -1. ``edges`` (E, 2): more
+    body-row pairs that join islands (the joints)."""
     N = bodies.count
     dynamic = bodies.kind == DYNAMIC
     labels = np.full(N, -1, dtype=np.int64)
@@ -77,6 +78,11 @@ def island_labels(bodies: Bodies, contacts: ContactSet | None) -> IntArray:
         a, b = a[both], b[both]
     else:
         a = b = np.zeros(0, dtype=np.int64)
+    if edges is not None and edges.shape[0]:
+        e = edges[(edges[:, 0] >= 0) & (edges[:, 1] >= 0)]  # -1: the world, not a node
+        both = dynamic[e[:, 0]] & dynamic[e[:, 1]]
+        a = np.concatenate([a, e[both, 0]])
+        b = np.concatenate([b, e[both, 1]])
     graph = coo_matrix((np.ones(a.shape[0]), (a, b)), shape=(N, N))
     _, lab = connected_components(graph, directed=False)
     labels[dynamic] = lab[dynamic]
@@ -138,6 +144,23 @@ def wake_touched(bodies: Bodies, contacts: ContactSet | None, caches: dict[str, 
         _wake_islands(bodies, caches, np.unique(hit))
 
 
+def wake_joined(bodies: Bodies, edges: IntArray, caches: dict[str, Any]) -> None:
+    """Wake sleeping dynamic bodies (and their islands) joined to an awake dynamic body or a moving
+    kinematic body by one of ``edges`` (E, 2) body rows (a joint to the world: row -1, ignored)."""
+    if edges.shape[0] == 0:
+        return
+    kind, awake = bodies.kind, bodies.awake
+    sleeping = (kind == DYNAMIC) & ~awake
+    if not np.any(sleeping):
+        return
+    e = edges[(edges[:, 0] >= 0) & (edges[:, 1] >= 0)]
+    a, b = e[:, 0], e[:, 1]
+    active = ((kind == DYNAMIC) & awake) | _moving_kinematic(bodies)
+    hit = np.concatenate([a[sleeping[a] & active[b]], b[sleeping[b] & active[a]]])
+    if hit.size:
+        _wake_islands(bodies, caches, np.unique(hit))
+
+
 def wake_resting_on(bodies: Bodies, caches: dict[str, Any], row: int) -> None:
     """Wake every island that fell asleep touching body ``row`` (its support moved, was pushed or
     is about to be removed). The collision stages skip pairs of a sleeping and a static body, so
@@ -152,7 +175,7 @@ def wake_resting_on(bodies: Bodies, caches: dict[str, Any], row: int) -> None:
 
 
 def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt: float, settings: Any,
-                 caches: dict[str, Any]) -> None:
+                   caches: dict[str, Any], edges: IntArray | None = None) -> None:
     """Advance rest times, put resting islands to sleep and wake islands that were disturbed.
 
     Args:
@@ -163,6 +186,7 @@ def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt
         dt: step length, s.
         settings: uses ``sleep_enabled``, ``rest_speed``, ``rest_time``.
         caches: ``caches["sleep"]`` keeps the island label and supports of sleeping bodies by handle.
+        edges: (E, 2) body rows held together by joints (one island), or None.
     """
     st = _state(caches)
     N = bodies.count
@@ -205,7 +229,7 @@ def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt
 
     # 3. islands: any awake member keeps (or makes) the whole island awake; a moving kinematic
     #    body touching an island keeps it from resting
-    labels = island_labels(bodies, contacts)
+    labels = island_labels(bodies, contacts, edges)
     nl = int(labels.max()) + 1 if N else 0
     if nl <= 0:
         return
@@ -249,4 +273,5 @@ def settle_islands(alg: Algebra, bodies: Bodies, contacts: ContactSet | None, dt
     del alg
 
 
-__all__ = ["body_speeds", "island_labels", "settle_islands", "wake_resting_on", "wake_touched"]
+__all__ = ["body_speeds", "island_labels", "settle_islands", "wake_joined", "wake_resting_on",
+           "wake_touched"]

@@ -57,6 +57,8 @@ from ..state.components import (
     BodyInfo,
     shape_kind,
 )
+from ..state.joints import JointSet
+from . import joint_calls as _joint_calls
 from . import queries
 from .stages import default_stages, removal_events
 
@@ -150,6 +152,10 @@ class Settings:
         rest_speed: a body rests while its speed (plus angular speed times size) is below this, m/s.
         rest_time: how long every body of an island must rest before it sleeps, s.
 
+    Joints
+        joint_passes: Gauss-Seidel passes over the joints before the contact solve (after their
+            warm start); joint_passes_after: passes after it, so the step ends with joints held.
+
     Why each default is what it is. Every figure below is printed by
     ``python -m ndrigid.bench.defaults`` (bench/defaults.py: the scenes, one setting changed per
     line); "the stack" is ten unit boxes of 1000 kg on a floor at 60 Hz, sleeping off, measured
@@ -174,6 +180,11 @@ class Settings:
     * ``solver_passes`` 8 and ``bias_free_passes`` 3: 6 + 2 lets the 3-D and 5-D stacks drift
       2.4 cm and peaks 8-22 times higher (2.8e-3 J/kg in 2-D); without bias-free passes (8 + 0)
       the stack jitters (2-D 3.5e-2 J/kg, overlap 8.6 mm, drift 2.2 cm).
+    * ``joint_passes`` 8 and ``joint_passes_after`` 4: a 4-D chain of ten 0.2 m links released
+      horizontally at 120 Hz (``python -m ndrigid.bench.joints passes``; worst joint error after 1 s
+      over 2 s, per link, and ms per step): 2 + 1 passes 17 %, 2.7 ms; 4 + 2 8.3 %, 1.7 ms;
+      8 + 4 7.0 %, 2.0 ms; 12 + 6 7.0 %, 2.4 ms. 8 + 4 is converged for the velocity rows; the
+      error left is the rows' position drift (not yet corrected at the position level).
     * ``warm_start`` True: without it the stack falls (drift over 12 m, overlap 56-104 mm).
     * ``solver_batching`` "point": the only batching that holds a stack of ten (numbers in
       core/dynamics/solver.py; "manifold" drifts 15 cm in 4-D, "jacobi" collapses).
@@ -235,6 +246,8 @@ class Settings:
     sleep_enabled: bool = True
     rest_speed: float = 0.05
     rest_time: float = 0.5
+    joint_passes: int = 8
+    joint_passes_after: int = 4
 
     def validated(self) -> Settings:
         for name in ("dt", "spring_frequency", "spring_damping_ratio", "separation_speed_cap", "rest_time"):
@@ -246,9 +259,10 @@ class Settings:
             v = getattr(self, name)
             if not isinstance(v, (int, np.integer)) or v < 1:
                 raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
-        if not isinstance(self.bias_free_passes, (int, np.integer)) or self.bias_free_passes < 0:
-            raise InputError("settings.bias_free_passes: expected an integer >= 0, got "
-                             f"{self.bias_free_passes!r}")
+        for name in ("bias_free_passes", "joint_passes", "joint_passes_after"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v < 0:
+                raise InputError(f"settings.{name}: expected an integer >= 0, got {v!r}")
         for name in ("compiled", "warm_start", "sleep_enabled"):
             if not isinstance(getattr(self, name), (bool, np.bool_)):
                 raise InputTypeError(f"settings.{name}: expected True or False, got {getattr(self, name)!r}")
@@ -305,6 +319,7 @@ class Simulation:
         self.gravity = g
         self.bodies = Bodies(alg)
         self.info = BodyInfo()
+        self.joints = JointSet(n)
         self.timings = StepTimings()
         self.time = 0.0
         self.step_count = 0
@@ -551,6 +566,7 @@ class Simulation:
         row = self.row(handle)
         self._wake_touching(row)
         self._removal_events(handle)
+        _joint_calls.remove_joints_of(self, int(handle))
         b, info = self.bodies, self.info
         sid = int(b.shape_id[row])
         moved_from = b.swap_remove(row)
@@ -906,6 +922,58 @@ class Simulation:
             b.angular_velocity[r] += self.bodies.world_inv_inertia()[r] @ ang
         self._wake_touching(r)
 
+    # -- joints -----------------------------------------------------------------------------------
+
+    def add_joint(self, kind: str, body_a: int, body_b: int | None = None, **options: Any) -> int:
+        """Join two bodies (or ``body_a`` and the world, ``body_b=None``); returns a joint handle.
+
+        Kinds: ``"point"``, ``"weld"``, ``"distance"``, ``"slider"``, ``"hinge"``, ``"spring"``,
+        ``"wheel"`` (what each holds: :mod:`ndrigid.core.world.joint_calls`). Options (world
+        values, taken where the bodies are now; the joint then turns and moves with them):
+
+        * ``anchor`` (n): the joint's point (default: body B's origin, or A's with the world);
+          distance and spring joints take ``anchor`` on A and ``anchor_b`` on B (default: the
+          bodies' origins);
+        * ``plane`` (k, a unit 2-blade u ^ v): the plane a hinge or wheel turns in (default
+          e_0 ^ e_1); ``axis`` (n): a slider's line (default e_0) or a wheel's suspension line
+          (default e_1, up);
+        * ``length`` (a rod or a spring's rest length; default the anchors' distance), or
+          ``min_length``/``max_length`` (a rope: min 0);
+        * ``lower``, ``upper`` (rad, in [-pi, pi]): a hinge's angle limits, from where it is made;
+        * ``motor_speed`` (rad/s) and ``max_motor_torque`` (N m; 0: no motor): hinge and wheel;
+        * ``frequency`` (Hz) and ``damping_ratio``: a spring's, or a wheel's suspension; for other
+          kinds a soft joint (0: rigid);
+        * ``break_force`` (N), ``break_torque`` (N m): the joint breaks (is removed, with a
+          :class:`~ndrigid.core.dynamics.joints.JointEvent` in :attr:`events`) in a step whose
+          constraint force or couple is larger (default inf: never);
+        * ``collide`` (default False): whether the two bodies still collide with each other.
+        """
+        return _joint_calls.add_joint(self, kind, body_a, body_b, **options)
+
+    def remove_joint(self, joint: int) -> None:
+        """Remove a joint; its bodies wake."""
+        _joint_calls.remove_joint(self, joint)
+
+    def joint_handles(self, body: int | None = None) -> NDArray[np.int64]:
+        """Handles of every joint (or of the joints that hold ``body``)."""
+        return _joint_calls.joint_handles(self, body)
+
+    def joint(self, joint: int) -> dict[str, Any]:
+        """A joint's kind, bodies and last step's constraint ``force`` (N) and ``torque`` (N m)."""
+        return _joint_calls.joint_info(self, joint)
+
+    def joint_angle(self, joint: int) -> float:
+        """A hinge's or wheel's angle in its plane (rad, from where it was made)."""
+        return _joint_calls.joint_angle(self, joint)
+
+    def joint_error(self, joint: int) -> float:
+        """How far apart (m) the joint's anchors are (distance joints: outside their range)."""
+        return _joint_calls.joint_error(self, joint)
+
+    def set_motor(self, joint: int, speed: Any = None, max_torque: Any = None) -> None:
+        """Change a hinge's or wheel's motor (target speed rad/s, largest torque N m); wakes it."""
+        _joint_calls.set_motor(self, joint, speed, max_torque)
+
     # -- stepping ---------------------------------------------------------------------------------
 
     def step(self, dt: float | None = None) -> None:
@@ -967,6 +1035,7 @@ class Simulation:
     _GUARDED = ("position", "rotor", "rotation", "velocity", "angular_velocity")
     #: the body columns a step writes (the stages and kernels write no other)
     _STEP_COLUMNS = _GUARDED + ("force", "torque", "awake", "rest_time")
+    # (the joint table is saved whole: a step writes its impulses and removes broken joints)
 
     def _save_step_state(self) -> dict[str, Any]:
         """What a step changes, copied (the body columns it writes, the caches) or referenced
@@ -975,7 +1044,8 @@ class Simulation:
         return {"columns": {name: b.column(name).copy() for name in self._STEP_COLUMNS},
                 "caches": _copy_tree(self.caches), "pairs": self.pairs, "contacts": self.contacts,
                 "events": self.events, "pending": list(self._pending_events), "time": self.time,
-                "step_count": self.step_count, "timings": self.timings}
+                "step_count": self.step_count, "timings": self.timings,
+                "joints": self.joints.copy_state() if self.joints.count else None}
 
     def _restore_step_state(self, saved: dict[str, Any]) -> None:
         b = self.bodies
@@ -985,6 +1055,8 @@ class Simulation:
         self.pairs, self.contacts, self.events = saved["pairs"], saved["contacts"], saved["events"]
         self._pending_events = list(saved["pending"])
         self.time, self.step_count, self.timings = saved["time"], saved["step_count"], saved["timings"]
+        if saved["joints"] is not None:
+            self.joints.set_state(saved["joints"])
 
     def _nonfinite(self) -> tuple[NDArray[np.intp], str]:
         """Rows with a guarded quantity out of bounds (non-finite, or a position or speed beyond

@@ -1,10 +1,10 @@
 """Save and restore a whole world: for save games, rewind and network rollback.
 
 A snapshot holds everything a step reads: the body table (poses, velocities, masses, materials,
-sleep timers), the shapes, the settings and gravity, the contacts of the last step with their
-warm-start impulses, the sleeping islands, the touching pairs and pending events, the time and
-the step counter that salts the solver's order. Restoring one and stepping gives, bit for bit,
-what the uninterrupted world gives (tests/test_snapshot.py).
+sleep timers), the joints (with their warm-start impulses), the shapes, the settings and gravity,
+the contacts of the last step with their warm-start impulses, the sleeping islands, the touching
+pairs and pending events, the time and the step counter that salts the solver's order. Restoring
+one and stepping gives, bit for bit, what the uninterrupted world gives (tests/test_snapshot.py).
 
 * In memory: ``state = sim.save_state()`` and ``sim.restore_state(state)`` (a deep copy each way,
   so one state can be restored many times; anything can be user data).
@@ -36,6 +36,7 @@ from ..errors import InputError, InputTypeError
 from ..geometry import shapes as _shapes
 from ..state.components import Bodies, BodyInfo, shape_value_key
 from ..state.contacts import ContactSet, ManifoldPoints
+from ..state.joints import JointSet
 
 if TYPE_CHECKING:
     from .simulation import Simulation
@@ -51,6 +52,8 @@ MAX_FILE_BYTES = 2 * 1024 ** 3
 _MAGIC = "ndrigid-world"
 _STATE_KEYS = ("settings", "gravity", "bodies", "info", "time", "step_count", "pairs", "contacts", "caches",
                "events", "pending_events")
+# keys a state may lack (states saved before they existed): their value when missing
+_OPTIONAL_KEYS = ("joints",)
 # caches keyed by id(): meaningless in another process, rebuilt on demand (results do not change)
 _ID_KEYED = (("narrowphase", "extra_ids"), ("narrowphase", "convex_tables"))
 
@@ -64,12 +67,13 @@ def save_state(sim: Simulation) -> dict[str, Any]:
         "dim": sim.dim, "settings": sim.settings, "gravity": sim.gravity, "bodies": _table_state(sim.bodies),
         "info": sim.info, "time": sim.time, "step_count": sim.step_count, "pairs": sim.pairs,
         "contacts": sim.contacts, "caches": sim.caches, "events": sim.events,
-        "pending_events": sim._pending_events})
+        "pending_events": sim._pending_events, "joints": sim.joints.copy_state()})
 
 
 def restore_state(sim: Simulation, state: dict[str, Any]) -> None:
     """Put a saved state into ``sim`` (same dimension); the state can be restored again."""
-    if not isinstance(state, dict) or set(_STATE_KEYS) | {"dim"} != set(state):
+    if not isinstance(state, dict) or not set(_STATE_KEYS) | {"dim"} <= set(state) <= (
+            set(_STATE_KEYS) | {"dim"} | set(_OPTIONAL_KEYS)):
         raise InputError("state: expected a dict made by Simulation.save_state, got "
                          f"{type(state).__name__}")
     if state["dim"] != sim.dim:
@@ -77,9 +81,13 @@ def restore_state(sim: Simulation, state: dict[str, Any]) -> None:
                          f"world")
     s = copy.deepcopy(state)
     bodies = _table_from_state(sim.alg, s["bodies"])  # everything is built before anything changes
+    joints = JointSet(sim.dim)
+    if s.get("joints") is not None:
+        joints.set_state(s["joints"], check=True)
     sim.settings, sim.gravity, sim.bodies, sim.info = s["settings"], s["gravity"], bodies, s["info"]
     sim.time, sim.step_count, sim.pairs, sim.contacts = s["time"], s["step_count"], s["pairs"], s["contacts"]
     sim.caches, sim.events, sim._pending_events = s["caches"], s["events"], s["pending_events"]
+    sim.joints = joints
 
 
 def _table_state(t: Bodies) -> dict[str, Any]:
@@ -173,10 +181,12 @@ _SHAPES = {c.__name__: c for c in (_shapes.Ball, _shapes.Box, _shapes.ConvexPoly
 
 
 def _records() -> dict[str, type]:
+    from ..dynamics.joints import JointEvent
     from .simulation import Settings, StepTimings
     from .stages import ContactEvent
 
     return {"ContactSet": ContactSet, "ManifoldPoints": ManifoldPoints, "ContactEvent": ContactEvent,
+            "JointEvent": JointEvent,
             "Settings": Settings, "StepTimings": StepTimings, "BodyInfo": BodyInfo}
 
 

@@ -26,6 +26,7 @@ from .. import kernels as _kernels
 from ..algebra import skew
 from ..collision import broadphase, narrowphase
 from ..dynamics import integrate as _integrate
+from ..dynamics import joints as _joints
 from ..dynamics import sleep, solver
 from ..state.components import DYNAMIC
 from . import queries as _queries
@@ -64,7 +65,24 @@ class ContactEvent(NamedTuple):
 
 
 def _stage_find_pairs(sim: Simulation, dt: float) -> None:
-    sim.pairs = broadphase.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+    pairs = broadphase.find_pairs(sim.alg, sim.bodies, sim.info.shapes, sim.settings, sim.caches, dt)
+    if sim.joints.count and len(pairs):
+        pairs = _without_joined(sim, pairs)
+    sim.pairs = pairs
+
+
+def _without_joined(sim: Simulation, pairs: np.ndarray) -> np.ndarray:
+    """Candidate pairs less those of two bodies held by a joint that does not let them collide."""
+    j = sim.joints
+    keep = ~j.collide & (j.body_b >= 0)
+    if not np.any(keep):
+        return pairs
+    ja, jb = j.body_a[keep], j.body_b[keep]
+    jk = np.unique((np.minimum(ja, jb) << np.int64(32)) | np.maximum(ja, jb))
+    h = sim.bodies.handle
+    ha, hb = h[pairs[:, 0]].astype(np.int64), h[pairs[:, 1]].astype(np.int64)
+    pk = (np.minimum(ha, hb) << np.int64(32)) | np.maximum(ha, hb)
+    return pairs[~np.isin(pk, jk)]
 
 
 def _stage_find_contacts(sim: Simulation, dt: float) -> None:
@@ -75,12 +93,29 @@ def _stage_find_contacts(sim: Simulation, dt: float) -> None:
 
 
 def _stage_solve(sim: Simulation, dt: float) -> None:
+    rows = None
+    if sim.joints.count:
+        _joints.wake_joined(sim.bodies, sim.joints, sim.info.handle_to_row, sim.caches)
+        rows = _joints.prepare(sim.alg, sim.bodies, sim.joints, sim.info.handle_to_row, dt, sim.settings)
+    if rows is not None:
+        _joints.run(rows, sim.bodies, sim.settings.joint_passes, warm=True)
     solver.solve_impulses(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches, sim.gravity)
+    if rows is not None:
+        _joints.run(rows, sim.bodies, sim.settings.joint_passes_after, warm=False)
+        _joints.finish(rows, sim.joints)
+        broken = _joints.broken(sim.joints)
+        for r in sorted(broken.tolist(), reverse=True):
+            j = sim.joints
+            sim.events.append(_joints.JointEvent("joint_broken", int(j.handle[r]), int(j.body_a[r]),
+                                                 int(j.body_b[r]), float(j.force[r]), float(j.torque[r])))
+        for h in [int(sim.joints.handle[r]) for r in broken.tolist()]:
+            sim.joints.remove(h)
 
 
 def _stage_sleep(sim: Simulation, dt: float) -> None:
     was_awake = sim.bodies.awake.copy()
-    sleep.settle_islands(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches)
+    edges = _joints.joined_rows(sim.joints, sim.info.handle_to_row) if sim.joints.count else None
+    sleep.settle_islands(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches, edges)
     _queries.note_sleepers(sim, was_awake)
 
 
