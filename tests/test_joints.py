@@ -367,7 +367,8 @@ def _chain_joints(sim: Simulation, kind: str, bodies: list) -> None:
                    "1.6e-4 at 960 Hz, from the first step; balls and 2-D boxes hold to 1e-15): the joint "
                    "rows' response and the split flow do not use the same pose of the step")
 @dims(3, 4, 5)
-def test_joints_between_spinning_boxes_conserve_momentum_in_split_mode(dim: int, rng: np.random.Generator) -> None:
+def test_joints_between_spinning_boxes_conserve_momentum_in_split_mode(dim: int,
+                                                                      rng: np.random.Generator) -> None:
     sim = _world(dim, gravity=False, gyroscopic="split")
     bodies = [sim.add_body(Box(np.linspace(0.05, 0.12, dim)), position=0.3 * i * _e(dim, 0), mass=1.0 + i,
                            mask=0, velocity=rng.normal(size=dim), angular_velocity=rng.normal(size=sim.alg.k))
