@@ -126,39 +126,15 @@ def hinge_angles(FA: Array, FB: Array) -> Array:
     return np.arctan2(np.einsum("ji,ji->j", FA[:, 1], FB[:, 0]), np.einsum("ji,ji->j", FA[:, 0], FB[:, 0]))
 
 
-def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntArray, dt: float,
-            settings: Any) -> JointRows | None:
-    """Build this step's joint rows (None when no joint holds an awake dynamic body)."""
-    if joints.count == 0:
-        return None
+def equality_rows(alg: Algebra, kind: NDArray[np.int8], g: dict[str, Array]) -> tuple[Array, Array,
+                                                                                   NDArray[np.bool_]]:
+    """Jacobians G (J, n + k, 2 (n + k)), errors C (J, n + k) and the used slots (J, n + k) of the
+    joints' equality rows (n linear slots, then k angular slots), from their world geometry ``g``
+    (:func:`joint_geometry`)."""
     n, k = alg.n, alg.k
     w = n + k
-    N = bodies.count
-    ra = handle_to_row[joints.body_a]
-    rb = np.where(joints.body_b >= 0, handle_to_row[np.maximum(joints.body_b, 0)], -1)
-    dyn = (bodies.kind == DYNAMIC) & bodies.awake
-    dynA = dyn[ra]
-    dynB = np.where(rb >= 0, dyn[np.maximum(rb, 0)], False)
-    sel = np.nonzero(dynA | dynB)[0]
-    if sel.size == 0:
-        return None
-    ra, rb, dynA, dynB = ra[sel], rb[sel], dynA[sel], dynB[sel]
-    J = sel.size
-    kind = joints.kind[sel]
-    g = joint_geometry(alg, bodies, joints, ra, rb, sel)
+    J = kind.shape[0]
     pA, pB, cA, cB, FA, FB, axis = g["pA"], g["pB"], g["cA"], g["cB"], g["FA"], g["FB"], g["axis"]
-
-    # inverse masses and world inverse inertia per side (zero where the side takes no impulse)
-    inv_m_all = np.where(dyn, bodies.inv_mass, 0.0)
-    inv_I_all = bodies.world_inv_inertia() * dyn[:, None, None]
-    ia = ra
-    ib = np.where(rb >= 0, rb, N)  # row N of the state: the world, never changed
-    inv_m = np.concatenate([inv_m_all, [0.0]])
-    inv_I = np.concatenate([inv_I_all, np.zeros((1, k, k))])
-    imA, imB = inv_m[ia], inv_m[ib]
-    IA, IB = inv_I[ia], inv_I[ib]
-
-    # --- equality rows: n linear slots, then k angular slots ---------------------------------
     R = n + k
     G = np.zeros((J, R, 2 * w))
     C = np.zeros((J, R))
@@ -180,32 +156,106 @@ def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntAr
     fa, fb = FA[:, p[:, 0]], FB[:, p[:, 1]]
     ang_on = np.zeros((J, k), dtype=bool)
     ang_on[(kind == WELD) | (kind == SLIDER)] = True
-    hinge_like = (kind == HINGE) | (kind == WHEEL)
-    ang_on[hinge_like, 1:] = True
+    ang_on[(kind == HINGE) | (kind == WHEEL), 1:] = True
     E = _wedge(alg, fb, fa) * ang_on[..., None]
     G[:, n:, n:w] = -E
     G[:, n:, w + n:] = E
     C[:, n:] = np.einsum("jpi,jpi->jp", fa, fb) * ang_on
     lin_on = np.any(D != 0.0, axis=2)
-    on = np.concatenate([lin_on, ang_on], axis=1)
     C[:, :n] *= lin_on
+    return G, C, np.concatenate([lin_on, ang_on], axis=1)
 
-    # responses H (per unit impulse, true masses) and the block's effective mass
+
+def response(G: Array, imA: Array, IA: Array, imB: Array, IB: Array) -> Array:
+    """Velocity change per unit impulse (J, rows, 2 w) of rows G: M^-1 G^T, row by row."""
+    w = G.shape[-1] // 2
+    n = w - IA.shape[-1]  # IA is (J, k, k)
     H = np.empty_like(G)
     H[..., :n] = imA[:, None, None] * G[..., :n]
     H[..., n:w] = np.einsum("jrb,jbc->jrc", G[..., n:w], IA)
     H[..., w:w + n] = imB[:, None, None] * G[..., w:w + n]
     H[..., w + n:] = np.einsum("jrb,jbc->jrc", G[..., w + n:], IB)
+    return H
+
+
+def awake_sides(bodies: Bodies, joints: JointSet, handle_to_row: IntArray) -> tuple[
+        IntArray, IntArray, IntArray, NDArray[np.bool_], NDArray[np.bool_]] | None:
+    """The joints that hold an awake dynamic body: their rows ``sel``, body rows ``ia``, ``ib``
+    (``ib`` = N, one past the last body: the world) and whether each side takes impulses."""
+    N = bodies.count
+    ra = handle_to_row[joints.body_a]
+    rb = np.where(joints.body_b >= 0, handle_to_row[np.maximum(joints.body_b, 0)], -1)
+    dyn = (bodies.kind == DYNAMIC) & bodies.awake
+    dynA = dyn[ra]
+    dynB = np.where(rb >= 0, dyn[np.maximum(rb, 0)], False)
+    sel = np.nonzero(dynA | dynB)[0]
+    if sel.size == 0:
+        return None
+    return sel, ra[sel], np.where(rb[sel] >= 0, rb[sel], N), dynA[sel], dynB[sel]
+
+
+def side_inverses(bodies: Bodies, ia: IntArray, ib: IntArray) -> tuple[Array, Array, Array, Array]:
+    """Inverse masses and world inverse inertia maps of each side (zero where a side takes no
+    impulse: static, kinematic, asleep, or the world at row N)."""
+    k = bodies.alg.k
+    dyn = (bodies.kind == DYNAMIC) & bodies.awake
+    inv_m = np.concatenate([np.where(dyn, bodies.inv_mass, 0.0), [0.0]])
+    inv_I = np.concatenate([bodies.world_inv_inertia() * dyn[:, None, None], np.zeros((1, k, k))])
+    return inv_m[ia], inv_I[ia], inv_m[ib], inv_I[ib]
+
+
+def block_inverse(G: Array, H: Array, C: Array, on: NDArray[np.bool_]) -> Array:
+    """Inverse effective masses (J, R, R) of the joints' equality blocks ``K = G M^-1 G^T``.
+
+    A row whose bodies cannot respond (K_rr = 0, e.g. a body without inertia in that plane) is
+    dropped (``on``, G, H and C cleared in place); unused slots get an identity block (zero impulse).
+    """
+    R = G.shape[1]
     K = np.einsum("jra,jsa->jrs", G, H)
-    # a row whose bodies cannot respond (K_rr = 0, e.g. a body without inertia in that plane) is
-    # dropped; unused slots get an identity block (zero impulse)
     diag = np.einsum("jrr->jr", K)
     on &= diag > 1e-14 * np.maximum(diag.max(axis=1), 1e-300)[:, None]
     G[~on] = 0.0
     H[~on] = 0.0
     C[~on] = 0.0
     K = np.where(on[:, :, None] & on[:, None, :], K, 0.0) + (~on)[:, :, None] * np.eye(R)
-    Kinv = np.linalg.inv(K)
+    return np.linalg.inv(K)
+
+
+def colour_order(ia: IntArray, ib: IntArray, dynA: NDArray[np.bool_], dynB: NDArray[np.bool_],
+                 N: int) -> tuple[IntArray, IntArray]:
+    """Solve order of joints (sorted by colour, then by their own order: no dynamic body twice in a
+    colour) and the bounds (colours + 1,) of each colour in it."""
+    J = ia.shape[0]
+    colour = colour_items(ia, ib, dynA, dynB, J - np.arange(J, dtype=np.int64), N)
+    order = np.argsort(colour, kind="stable")
+    ncol = int(colour.max()) + 1
+    return order, np.searchsorted(colour[order], np.arange(ncol + 1))
+
+
+def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntArray, dt: float,
+            settings: Any) -> JointRows | None:
+    """Build this step's joint rows (None when no joint holds an awake dynamic body)."""
+    if joints.count == 0:
+        return None
+    n, k = alg.n, alg.k
+    w = n + k
+    N = bodies.count
+    sides = awake_sides(bodies, joints, handle_to_row)
+    if sides is None:
+        return None
+    sel, ia, ib, dynA, dynB = sides
+    J = sel.size
+    kind = joints.kind[sel]
+    ra, rb = ia, np.where(ib < N, ib, -1)
+    g = joint_geometry(alg, bodies, joints, ra, rb, sel)
+    pA, pB, cA, cB, FA, FB, axis = g["pA"], g["pB"], g["cA"], g["cB"], g["FA"], g["FB"], g["axis"]
+    imA, IA, imB, IB = side_inverses(bodies, ia, ib)
+
+    # --- equality rows: n linear slots, then k angular slots ---------------------------------
+    R = n + k
+    G, C, on = equality_rows(alg, kind, g)
+    H = response(G, imA, IA, imB, IB)
+    Kinv = block_inverse(G, H, C, on)
 
     freq = joints.frequency[sel]
     zeta = joints.damping_ratio[sel]
@@ -311,11 +361,7 @@ def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntAr
         on_s[wheel, 0] = True
 
     Gs[~on_s] = 0.0
-    Hs = np.empty_like(Gs)
-    Hs[..., :n] = imA[:, None, None] * Gs[..., :n]
-    Hs[..., n:w] = np.einsum("jrb,jbc->jrc", Gs[..., n:w], IA)
-    Hs[..., w:w + n] = imB[:, None, None] * Gs[..., w:w + n]
-    Hs[..., w + n:] = np.einsum("jrb,jbc->jrc", Gs[..., w + n:], IB)
+    Hs = response(Gs, imA, IA, imB, IB)
     ks = np.einsum("jsa,jsa->js", Gs, Hs)
     on_s &= ks > 1e-300
     meff = np.where(on_s, 1.0 / np.where(on_s, ks, 1.0), 0.0)
@@ -333,10 +379,7 @@ def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntAr
     lam[:, R:] = np.clip(lam[:, R:], lo, hi)
 
     # colours: no dynamic body twice in one (joints sorted by colour, then by their own order)
-    colour = colour_items(ia, np.where(rb >= 0, rb, N), dynA, dynB, J - np.arange(J, dtype=np.int64), N)
-    order = np.argsort(colour, kind="stable")
-    ncol = int(colour.max()) + 1
-    bounds = np.searchsorted(colour[order], np.arange(ncol + 1))
+    order, bounds = colour_order(ia, ib, dynA, dynB, N)
 
     def o(x: Any) -> Any:
         return x[order]
