@@ -107,9 +107,6 @@ def test_physical_pendulum_period(dim: int) -> None:
     assert abs(T / T_ref - 1.0) < 0.01, (T, T_ref)
 
 
-@pytest.mark.xfail(strict=True, reason="not met yet: a chain of ten released horizontally whips; the "
-                   "velocity-level joint rows leave up to 7 % of a link of error at 120 Hz in 4-D (8 to 12 "
-                   "passes alike: a position-level correction is missing), measured with this test")
 @dims()
 def test_chain_of_ten_links_holds_together(dim: int) -> None:
     """Ten boxes of 0.2 m joined end to end by point joints (the first to the world), released
@@ -213,8 +210,6 @@ def test_hinge_limit_holds_against_a_motor(dim: int) -> None:
 # -- other kinds ------------------------------------------------------------------------------------
 
 
-@pytest.mark.xfail(strict=True, reason="not met yet: the relative pose drifts 1.2e-5 to 5.8e-5 in 3-D to "
-                   "5-D over 2 s of spinning (velocity rows only, no position-level correction)")
 @dims(3, 4, 5)
 def test_weld_moves_as_one_body(dim: int, rng: np.random.Generator) -> None:
     """Two welded boxes, thrown and spun without gravity: their relative pose stays fixed (1e-6)

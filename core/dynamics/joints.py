@@ -53,6 +53,7 @@ from typing import Any, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
+from .. import kernels as _kernels
 from ..algebra import Algebra
 from ..state.components import DYNAMIC, Bodies
 from ..state.joints import DISTANCE, HINGE, POINT, SCALAR_ROWS, SLIDER, SPRING, WELD, WHEEL, JointSet
@@ -118,7 +119,11 @@ def joint_geometry(alg: Algebra, bodies: Bodies, joints: JointSet, ra: IntArray,
     FA = np.einsum("jab,jib->jia", RA, joints.frame_a[sel])
     FB = np.einsum("jab,jib->jia", RB, joints.frame_b[sel])
     axis = np.einsum("jab,jb->ja", RA, joints.axis_a[sel])
-    return {"pA": pA, "pB": pB, "cA": cA, "cB": cB, "FA": FA, "FB": FB, "axis": axis}
+    # directions across the line, chosen in A's frame and turned with it: a basis that changes
+    # smoothly with the pose (a basis of the world axis would jump where the axis passes a
+    # coordinate axis, flipping the rows' signs between the poses of one step)
+    across = np.einsum("jab,jrb->jra", RA, tangent_basis(joints.axis_a[sel]))
+    return {"pA": pA, "pB": pB, "cA": cA, "cB": cB, "FA": FA, "FB": FB, "axis": axis, "across": across}
 
 
 def hinge_angles(FA: Array, FB: Array) -> Array:
@@ -134,7 +139,7 @@ def equality_rows(alg: Algebra, kind: NDArray[np.int8], g: dict[str, Array]) -> 
     n, k = alg.n, alg.k
     w = n + k
     J = kind.shape[0]
-    pA, pB, cA, cB, FA, FB, axis = g["pA"], g["pB"], g["cA"], g["cB"], g["FA"], g["FB"], g["axis"]
+    pA, pB, cA, cB, FA, FB = g["pA"], g["pB"], g["cA"], g["cB"], g["FA"], g["FB"]
     R = n + k
     G = np.zeros((J, R, 2 * w))
     C = np.zeros((J, R))
@@ -142,8 +147,7 @@ def equality_rows(alg: Algebra, kind: NDArray[np.int8], g: dict[str, Array]) -> 
     line_like = (kind == SLIDER) | (kind == WHEEL)
     D = np.zeros((J, n, n))
     D[point_like] = np.eye(n)
-    if np.any(line_like):
-        D[line_like, : n - 1] = tangent_basis(axis[line_like])
+    D[line_like, : n - 1] = g["across"][line_like]
     mid = 0.5 * (pA + pB)
     at = np.where(line_like[:, None], pB, mid)
     rA, rB = at - cA, at - cB
@@ -458,15 +462,36 @@ def wake_joined(bodies: Bodies, joints: JointSet, handle_to_row: IntArray, cache
     _wake(bodies, joined_rows(joints, handle_to_row), caches)
 
 
-def run(rows: JointRows, bodies: Bodies, passes: int, warm: bool) -> None:
-    """Apply the warm start (``warm``) and ``passes`` passes to the bodies' velocities."""
+def run(rows: JointRows, bodies: Bodies, passes: int, warm: bool, settings: Any = None) -> None:
+    """Apply the warm start (``warm``) and ``passes`` passes to the bodies' velocities: by the
+    compiled kernel where ``kernels.use_compiled(settings)`` (None: wherever numba is available),
+    else by the vectorised numpy path. Both solve the same joints in the same order."""
     if passes == 0 and not warm:
         return
     X = body_state(bodies)
-    if warm:
-        warm_start(rows, X)
-    solve_passes(rows, X, passes)
+    if _kernels.use_compiled(settings):
+        _run_compiled(rows, X, passes, warm)
+    else:
+        if warm:
+            warm_start(rows, X)
+        solve_passes(rows, X, passes)
     store_state(bodies, X)
+
+
+def _run_compiled(rows: JointRows, X: Array, passes: int, warm: bool) -> None:
+    """:func:`warm_start` and :func:`solve_passes` by the compiled ``joints`` kernel (joint by joint
+    in the stored order; X and ``rows.lam`` in place)."""
+    kern = _kernels.load("joints", rows.n)
+    if not (rows.lam.flags.c_contiguous and rows.lam.dtype == np.float64):
+        rows.lam = np.ascontiguousarray(rows.lam, dtype=np.float64)
+
+    def c(x: Any, dtype: Any = np.float64) -> Any:
+        return np.ascontiguousarray(x, dtype=dtype)
+
+    kern.run(c(rows.a, np.int64), c(rows.b, np.int64), c(rows.G), c(rows.H), c(rows.Kinv), c(rows.bias),
+             c(rows.mscale), c(rows.iscale), c(rows.Gs), c(rows.Hs), c(rows.bias_s), c(rows.lo), c(rows.hi),
+             c(rows.ms_s), c(rows.is_s), c(rows.meff), rows.lam, c(rows.on, np.bool_), c(rows.on_s, np.bool_),
+             X, bool(warm), int(passes))
 
 
 def broken(joints: JointSet) -> IntArray:

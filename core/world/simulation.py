@@ -155,6 +155,8 @@ class Settings:
     Joints
         joint_passes: Gauss-Seidel passes over the joints before the contact solve (after their
             warm start); joint_passes_after: passes after it, so the step ends with joints held.
+        joint_position_passes: passes of the joints' position correction after the bodies have
+            moved (0: none; core/dynamics/joint_positions.py).
 
     Why each default is what it is. Every figure below is printed by
     ``python -m ndrigid.bench.defaults`` (bench/defaults.py: the scenes, one setting changed per
@@ -248,6 +250,7 @@ class Settings:
     rest_time: float = 0.5
     joint_passes: int = 8
     joint_passes_after: int = 4
+    joint_position_passes: int = 6
 
     def validated(self) -> Settings:
         for name in ("dt", "spring_frequency", "spring_damping_ratio", "separation_speed_cap", "rest_time"):
@@ -259,7 +262,7 @@ class Settings:
             v = getattr(self, name)
             if not isinstance(v, (int, np.integer)) or v < 1:
                 raise InputError(f"settings.{name}: expected an integer >= 1, got {v!r}")
-        for name in ("bias_free_passes", "joint_passes", "joint_passes_after"):
+        for name in ("bias_free_passes", "joint_passes", "joint_passes_after", "joint_position_passes"):
             v = getattr(self, name)
             if not isinstance(v, (int, np.integer)) or isinstance(v, bool) or v < 0:
                 raise InputError(f"settings.{name}: expected an integer >= 0, got {v!r}")

@@ -26,6 +26,7 @@ from .. import kernels as _kernels
 from ..algebra import skew
 from ..collision import broadphase, narrowphase
 from ..dynamics import integrate as _integrate
+from ..dynamics import joint_positions as _joint_positions
 from ..dynamics import joints as _joints
 from ..dynamics import sleep, solver
 from ..state.components import DYNAMIC
@@ -98,10 +99,10 @@ def _stage_solve(sim: Simulation, dt: float) -> None:
         _joints.wake_joined(sim.bodies, sim.joints, sim.info.handle_to_row, sim.caches)
         rows = _joints.prepare(sim.alg, sim.bodies, sim.joints, sim.info.handle_to_row, dt, sim.settings)
     if rows is not None:
-        _joints.run(rows, sim.bodies, sim.settings.joint_passes, warm=True)
+        _joints.run(rows, sim.bodies, sim.settings.joint_passes, warm=True, settings=sim.settings)
     solver.solve_impulses(sim.alg, sim.bodies, sim.contacts, dt, sim.settings, sim.caches, sim.gravity)
     if rows is not None:
-        _joints.run(rows, sim.bodies, sim.settings.joint_passes_after, warm=False)
+        _joints.run(rows, sim.bodies, sim.settings.joint_passes_after, warm=False, settings=sim.settings)
         _joints.finish(rows, sim.joints)
         broken = _joints.broken(sim.joints)
         for r in sorted(broken.tolist(), reverse=True):
@@ -110,6 +111,9 @@ def _stage_solve(sim: Simulation, dt: float) -> None:
                                                  int(j.body_b[r]), float(j.force[r]), float(j.torque[r])))
         for h in [int(sim.joints.handle[r]) for r in broken.tolist()]:
             sim.joints.remove(h)
+        # the rows, for the position pass after the bodies move (stale once a joint is removed)
+        if not broken.size:
+            sim.caches["joint_rows"] = rows
 
 
 def _stage_sleep(sim: Simulation, dt: float) -> None:
@@ -316,6 +320,10 @@ def _stage_accelerate(sim: Simulation, dt: float) -> None:
 
 def _stage_advance_poses(sim: Simulation, dt: float) -> None:
     _integrate.advance_poses(sim.alg, sim.bodies, dt, compiled=_kernels.use_compiled(sim.settings))
+    rows = sim.caches.pop("joint_rows", None)
+    if rows is not None and sim.settings.joint_position_passes:
+        _joint_positions.project(sim.alg, sim.bodies, sim.joints, rows,
+                                 sim.settings.joint_position_passes, dt)
 
 
 def default_stages() -> list[tuple[str, Stage]]:
