@@ -8,6 +8,9 @@ and attach components; everything else happens here, once, in :class:`PhysicsBri
    built in the same order gives the same body order in every ECS, whose entity sets iterate in
    no defined order); entities that lost their RigidBody (or were deleted) lose their body;
    a replaced RigidBody instance rebuilds the body. Removals run before additions.
+   The same diff makes and removes the joints of :class:`~ndrigid.adapters._joints.Joint`
+   components (after the frame's bodies; see :mod:`ndrigid.adapters._joints` for which body is
+   which and what a Joint shows).
    The adapters call the diff only when their ECS says the set of RigidBody components changed
    (esper returns a new cached query list; tcod-ecs calls a component-changed hook), so a frame
    without spawns or deletions does no per-entity work at all.
@@ -34,7 +37,9 @@ exactly what changed.
 Rules for game code (also in the adapters' docs): assign ``velocity.linear = ...`` (the arrays
 returned are read-only, so an in-place ``velocity.linear[0] = 1`` raises instead of being silently
 lost); change a body's shape or material by replacing its RigidBody component; remove a body by
-deleting its entity or its RigidBody, never by ``sim.remove_body`` on a body an entity owns.
+deleting its entity or its RigidBody, never by ``sim.remove_body`` on a body an entity owns; join
+bodies with a Joint component and remove the joint by removing the component (a joint removed
+through ``sim.remove_joint`` shows its component as "removed" at the next frame).
 """
 
 from __future__ import annotations
@@ -51,6 +56,7 @@ from ndrigid.core.state.components import ALL_LAYERS, KIND_NAMES, STATIC
 from ndrigid.core.world.stages import _NO_POINTS
 from numpy.typing import NDArray
 
+from ._joints import EntityJointEvent, Joint, JointBook
 from .loop import FixedStepper
 
 Array = NDArray[np.float64]
@@ -386,11 +392,15 @@ class PhysicsBridge(Generic[E]):
         dt, max_steps_per_frame: the fixed step and the spiral-of-death cap (see FixedStepper).
         on_contact: called as ``on_contact(EntityContact)`` for every contact event, after the
             step that produced it.
+        on_joint: called as ``on_joint(EntityJointEvent)`` for every joint that broke, after the
+            step that broke it (in the order of the step's events, among the contact events).
     """
 
     def __init__(self, sim: Any, dt: float | None = None, max_steps_per_frame: int = 5,
-                 on_contact: Callable[[EntityContact], None] | None = None) -> None:
+                 on_contact: Callable[[EntityContact], None] | None = None,
+                 on_joint: Callable[[EntityJointEvent], None] | None = None) -> None:
         self.sim = sim
+        self.on_joint = on_joint
         self.store = PoseStore(sim.alg)
         self.stepper = FixedStepper(sim, dt, max_steps_per_frame, on_step=self._after_step)
         self.on_contact = on_contact
@@ -400,7 +410,8 @@ class PhysicsBridge(Generic[E]):
         self._slot_handle: NDArray[np.int64] = np.zeros(0, dtype=np.int64)
         self._free: list[int] = []
         self._stale = True
-        self._handler_error: Exception | None = None  # the first one raised by on_contact this frame
+        self._handler_error: Exception | None = None  # the first one raised by a handler this frame
+        self.joint_book = JointBook(self)  # the joints that Joint components own (adapters/_joints.py)
 
     # -- lookups --
 
@@ -415,17 +426,27 @@ class PhysicsBridge(Generic[E]):
         """The world's state (``Simulation.save_state``), which entity owns which body, and the
         stepper's banked time: what :meth:`restore` needs to put the game back."""
         self.apply_pending()  # assignments made this frame belong to the saved world
+        self.joint_book.apply_pending()
         return {"world": self.sim.save_state(), "bodies": {e: b.handle for e, b in self._bound.items()},
-                "accumulator": self.stepper.accumulator}
+                "accumulator": self.stepper.accumulator, "joints": self.joint_book.save()}
 
     def restore(self, saved: dict[str, Any], rigid_of: Callable[[E], RigidBody | None],
                 extras: Callable[[E], tuple[Transform | None, Velocity | None]],
-                attach: Callable[[E, Transform | None, Velocity | None], None]) -> None:
+                attach: Callable[[E, Transform | None, Velocity | None], None],
+                joints: Iterable[tuple[E, Joint]] | None = None) -> None:
         """Put back a :meth:`save`: the world's state, and each saved entity bound to its body
         again (its current RigidBody, Transform and Velocity components, or new ones attached).
-        Every saved entity must hold a RigidBody now; checked before anything changes."""
-        if not isinstance(saved, dict) or set(saved) != {"world", "bodies", "accumulator"}:
+        Every saved entity must hold a RigidBody now; checked before anything changes.
+
+        ``joints`` (every (entity, Joint) of the ECS world now): each saved joint is bound to its
+        holder's current Joint component again, which must be of the saved kind and name the
+        saved other entity; a Joint live now whose joint the saved world lacks is made again at
+        the next frame (broken and removed ones stay so)."""
+        if not isinstance(saved, dict) or set(saved) - {"joints"} != {"world", "bodies", "accumulator"}:
             raise InputError(f"saved: expected what PhysicsBridge.save returned, got {type(saved).__name__}")
+        saved_joints = saved.get("joints") or {}
+        current_joints = dict(joints or ())
+        self.joint_book.check_restore(saved_joints, current_joints)
         plan = []
         for e, h in saved["bodies"].items():
             rb = rigid_of(e)
@@ -448,6 +469,7 @@ class PhysicsBridge(Generic[E]):
         self._gone.clear()
         for e, h, rb, t, v in plan:
             self._own(e, rb, t, v, h, attach)
+        self.joint_book.restore(saved_joints, current_joints)
         self.stepper.accumulator = float(saved["accumulator"])
         self.stepper.forget_previous()
         self._stale = True
@@ -469,16 +491,21 @@ class PhysicsBridge(Generic[E]):
 
     def sync(self, current: Iterable[tuple[E, RigidBody]],
              extras: Callable[[E], tuple[Transform | None, Velocity | None]],
-             attach: Callable[[E, Transform | None, Velocity | None], None]) -> tuple[int, int]:
-        """Make bodies for new RigidBody components and remove those of vanished ones.
+             attach: Callable[[E, Transform | None, Velocity | None], None],
+             joints: Iterable[tuple[E, Joint]] | None = None) -> tuple[int, int]:
+        """Make bodies for new RigidBody components and remove those of vanished ones; make the
+        joints of new Joint components and remove those of vanished ones.
 
         Args:
             current: every (entity, RigidBody) of the ECS world now.
             extras: the entity's Transform and Velocity components (None where missing).
             attach: attach newly made components (None: the entity already had that one).
+            joints: every (entity, Joint) of the ECS world now (None: leave the joints alone).
 
         Returns:
-            (bodies added, bodies removed). Validates every new entity before touching any state.
+            (bodies added, bodies removed). Validates every new entity and joint before touching
+            any state. Order of the changes: removed joints, removed bodies (with their joints),
+            new bodies, new joints (in the order their Joint components were constructed).
         """
         now = dict(current)
         old = self._bound
@@ -499,14 +526,24 @@ class PhysicsBridge(Generic[E]):
             t, v = extras(e)
             swaps += [(e, c) for c, was in ((t, bnd.transform), (v, bnd.velocity))
                       if c is not None and c is not was]
+        book = self.joint_book
+        joints_gone, joints_new = ([], []) if joints is None else book.diff(joints)
         # everything is checked before anything changes: a frame applies whole or not at all
         for e, rb, t, v in plan:
             self._check_new(e, rb, t, v)
         for e, c in swaps:
             self._check_swap(e, c)
         self._check_unshared([(e, c) for e, _, t, v in plan for c in (t, v) if c is not None] + swaps)
-        if gone:
+        if joints_new:
+            gone_set = set(gone)
+            kinds = {e: b.rigid.kind for e, b in old.items() if e not in gone_set}
+            kinds.update({e: rb.kind for e, rb, _, _ in plan})
+            for e, jc in joints_new:
+                book.check(e, jc, kinds)
+        if gone or joints_gone:
             self._stale = True  # freeze the latest state (game code may have called the sim directly)
+        for e in joints_gone:
+            book.remove(e)
         for e in sorted(gone, key=lambda e: old[e].rigid.serial):
             self._unbind(e)
         for e, rb, t, v in plan:
@@ -515,7 +552,9 @@ class PhysicsBridge(Generic[E]):
             self.refresh()  # the replaced components keep a frozen copy of the latest state
             for e, c in swaps:
                 self._swap(e, c)
-        if gone or new or swaps:
+        for e, jc in joints_new:
+            book.add(e, jc)
+        if gone or new or swaps or joints_gone or joints_new:
             self._stale = True
         return len(new), len(gone)
 
@@ -646,6 +685,7 @@ class PhysicsBridge(Generic[E]):
         st.pending_velocity.pop(s, None)
         for c in (t, v):
             c._store, c._slot = None, -1
+        self.joint_book.body_going(b.handle)  # the core removes the body's joints with it
         self.sim.remove_body(b.handle)
         self._slot_handle[s] = -1
         self._free.append(s)
@@ -654,7 +694,9 @@ class PhysicsBridge(Generic[E]):
     # -- 2. assignments from game code --
 
     def apply_pending(self) -> None:
-        """Apply queued teleports (Simulation.set_pose) and velocities (one vectorised write)."""
+        """Apply queued motor changes (Simulation.set_motor), teleports (Simulation.set_pose) and
+        velocities (one vectorised write)."""
+        self.joint_book.apply_pending()
         st, sim = self.store, self.sim
         if st.pending_pose:
             for slot, t in list(st.pending_pose.items()):
@@ -708,12 +750,23 @@ class PhysicsBridge(Generic[E]):
 
     def _after_step(self) -> None:
         events = self.sim.events
-        if events and self.on_contact is not None:
+        if events:
             ent = self._handle_entity.get
             for ev in events:  # one call per event is what an ECS event API takes
+                if ev.kind == "joint_broken":  # the component is marked broken, handler or not
+                    handler: Any = self.on_joint
+                    out: Any = self.joint_book.broke(ev)
+                    self._stale = True
+                else:
+                    handler = self.on_contact
+                    if handler is None:
+                        continue
+                    out = EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor, ev.points,
+                                        ev.normal, ev.approach_speed, ev.impulse)
+                if handler is None:
+                    continue
                 try:
-                    self.on_contact(EntityContact(ev.kind, ent(ev.handle_a), ent(ev.handle_b), ev.sensor,
-                                                  ev.points, ev.normal, ev.approach_speed, ev.impulse))
+                    handler(out)
                 except Exception as exc:  # the other events and the frame's paid steps still run
                     if self._handler_error is None:
                         self._handler_error = exc
@@ -745,13 +798,14 @@ class PhysicsBridge(Generic[E]):
             a.flags.writeable = False
             setattr(st, name, a)
         self._stale = False
+        self.joint_book.refresh()
 
     def update(self, frame_seconds: float | None) -> int:
         """One frame after ``sync``: pending assignments, fixed steps, scatter. Returns steps taken.
 
-        An exception raised by the ``on_contact`` handler does not stop the frame: every event is
-        dispatched and every paid step taken, then the first such exception propagates (the
-        world and the components are complete and consistent by then)."""
+        An exception raised by the ``on_contact`` or ``on_joint`` handler does not stop the
+        frame: every event is dispatched and every paid step taken, then the first such exception
+        propagates (the world and the components are complete and consistent by then)."""
         self.apply_pending()
         self._handler_error = None
         try:
@@ -786,4 +840,5 @@ def wake(sim: Any, rows: NDArray[np.int64]) -> None:
     b.rest_time[touching] = 0.0
 
 
-__all__ = ["EntityContact", "PhysicsBridge", "PoseStore", "RigidBody", "Transform", "Velocity", "wake"]
+__all__ = ["EntityContact", "EntityJointEvent", "Joint", "PhysicsBridge", "PoseStore", "RigidBody",
+           "Transform", "Velocity", "wake"]

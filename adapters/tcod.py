@@ -14,6 +14,17 @@ loop calls, and the contact events of a frame come back as its return value::
             ...
         draw(ball.components[Transform].matrix, ball.components[Transform].position)
 
+Joints: a :class:`Joint` component (``entity.components[Joint]``) joins the entity's body to its
+``other`` entity's (or the world); removing the component removes the joint, and clearing either
+entity (or removing its RigidBody) removes it too (``state`` "removed"). A joint that breaks above
+its threshold comes back from ``update`` among the contact events, in step order, as an
+:class:`~ndrigid.adapters._joints.EntityJointEvent` (``kind == "joint_broken"``, ``entity_a`` the
+holder, ``entity_b`` the other entity or None, ``joint`` the component, ``force``, ``torque``),
+and its component's ``state`` becomes "broken" (it stays on the entity). ::
+
+    wheel.components[Joint] = Joint("wheel", chassis, plane=spin_plane, max_motor_torque=20.0)
+    wheel.components[Joint].motor_speed = 8.0        # forwarded to set_motor before the next step
+
 Components are keyed by their class (``entity.components[Transform]``), the only convention the
 adapter relies on. An entity is a body when it holds a RigidBody itself: components inherited
 through tcod-ecs's ``IsA`` relation (prefabs) are not read, since one RigidBody would otherwise
@@ -36,6 +47,7 @@ from ndrigid.core.errors import InputError, InputTypeError
 from ndrigid.core.world.simulation import Settings, Simulation
 
 from ._common import EntityContact, PhysicsBridge, RigidBody, Transform, Velocity
+from ._joints import EntityJointEvent, Joint
 
 # registry id -> number of RigidBody changes seen by the hook (an id outlives nothing: a system
 # holds its registry, and a new system always diffs on its first update)
@@ -57,6 +69,11 @@ def _on_transform_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
 
 @tcod.ecs.callbacks.register_component_changed(component=Velocity)
 def _on_velocity_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
+    _on_rigid_body_changed(entity, old, new)
+
+
+@tcod.ecs.callbacks.register_component_changed(component=Joint)
+def _on_joint_changed(entity: tcod.ecs.Entity, old: Any, new: Any) -> None:
     _on_rigid_body_changed(entity, old, new)
 
 
@@ -86,15 +103,15 @@ class PhysicsSystem:
             sim = Simulation(dim, gravity=gravity, settings=settings)
         self.registry = registry
         self.sim = sim
-        self._events: list[EntityContact] = []
+        self._events: list[EntityContact | EntityJointEvent] = []
         self.bridge: PhysicsBridge[tcod.ecs.Entity] = PhysicsBridge(sim, dt, max_steps_per_frame,
-                                                                    self._events.append)
+                                                                    self._events.append, self._events.append)
         self._seen_changes: int | None = None
 
-    def update(self, frame_seconds: float | None = None) -> list[EntityContact]:
-        """One frame: pick up entity changes, apply assigned velocities/poses, take the fixed steps
-        ``frame_seconds`` pays for (exactly one when None), write back; returns the frame's contact
-        events in the order the steps produced them."""
+    def update(self, frame_seconds: float | None = None) -> list[EntityContact | EntityJointEvent]:
+        """One frame: pick up entity changes, apply assigned velocities/poses/motors, take the fixed
+        steps ``frame_seconds`` pays for (exactly one when None), write back; returns the frame's
+        contact events and broken joints in the order the steps produced them."""
         self.sync()
         self._events.clear()
         self.bridge.update(frame_seconds)
@@ -106,7 +123,8 @@ class PhysicsSystem:
         if version == self._seen_changes:
             return
         holders = self.registry.Q.all_of(components=[RigidBody], traverse=())
-        self.bridge.sync(((e, e.components(traverse=())[RigidBody]) for e in holders), _extras, _attach)
+        self.bridge.sync(((e, e.components(traverse=())[RigidBody]) for e in holders), _extras, _attach,
+                         _joints(self.registry))
         self._seen_changes = version
 
     def save(self) -> dict[str, Any]:
@@ -117,7 +135,8 @@ class PhysicsSystem:
 
     def restore(self, saved: dict[str, Any]) -> None:
         """Put back a :meth:`save` (the saved entities must hold a RigidBody)."""
-        self.bridge.restore(saved, lambda e: e.components(traverse=()).get(RigidBody), _extras, _attach)
+        self.bridge.restore(saved, lambda e: e.components(traverse=()).get(RigidBody), _extras, _attach,
+                            _joints(self.registry))
         self._seen_changes = None
 
     def handle_of(self, entity: tcod.ecs.Entity) -> int:
@@ -127,6 +146,11 @@ class PhysicsSystem:
     def entity_of(self, handle: int) -> tcod.ecs.Entity | None:
         """Entity owning a body handle (None if none does)."""
         return self.bridge.entity_of(handle)
+
+
+def _joints(registry: tcod.ecs.Registry) -> list[tuple[tcod.ecs.Entity, Joint]]:
+    """Every (entity, Joint) the registry's entities hold themselves (not through IsA)."""
+    return [(e, e.components(traverse=())[Joint]) for e in registry.Q.all_of(components=[Joint], traverse=())]
 
 
 def _extras(entity: tcod.ecs.Entity) -> tuple[Transform | None, Velocity | None]:
@@ -142,4 +166,5 @@ def _attach(entity: tcod.ecs.Entity, transform: Transform | None, velocity: Velo
         own[Velocity] = velocity
 
 
-__all__ = ["EntityContact", "PhysicsSystem", "RigidBody", "Transform", "Velocity"]
+__all__ = ["EntityContact", "EntityJointEvent", "Joint", "PhysicsSystem", "RigidBody", "Transform",
+           "Velocity"]
