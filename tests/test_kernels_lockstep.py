@@ -14,7 +14,7 @@ import dataclasses
 
 import numpy as np
 import pytest
-from ndrigid.core import Ball, Box, ConvexPolytope, Settings, Simulation, kernels
+from ndrigid.core import Ball, Box, ConvexPolytope, HalfSpace, Settings, Simulation, kernels
 from ndrigid.core.dynamics import integrate, solver
 
 pytestmark = pytest.mark.skipif(not kernels.available(), reason="numba is not available")
@@ -191,3 +191,23 @@ def test_box_box_lockstep(dim: int) -> None:
     assert np.array_equal(want.feature, got.feature)
     for name in ("normal", "point", "depth"):
         assert _close(getattr(want, name), getattr(got, name)) < TOL, name
+
+
+@pytest.mark.parametrize("dim", DIMS)
+def test_speculative_row_at_a_rounding_noise_speed(dim: int) -> None:
+    """A ball just above a floor, closing at 1e-323 m/s (a subnormal: closing x dt is 0.0 in
+    floating point). The time of impact gap / (closing x dt) must not divide by zero on either
+    path (the compiled one raised ZeroDivisionError before the numpy path's floor of 1e-300 was
+    applied there too); both keep the speed and agree."""
+    res = {}
+    for compiled in (False, True):
+        settings = Settings(compiled=compiled, sleep_enabled=False)
+        sim = Simulation(dim, gravity=np.zeros(dim), settings=settings)
+        sim.add_body(HalfSpace(np.eye(dim)[1], 0.0), kind="static")
+        v = np.zeros(dim)
+        v[1] = -1e-323
+        h = sim.add_body(Ball(dim, 0.5), position=0.501 * np.eye(dim)[1], velocity=v)
+        sim.step()
+        assert sim.contacts is not None and sim.contacts.count == 1  # the speculative row was solved
+        res[compiled] = sim.velocity(h)
+    assert np.all(np.isfinite(res[True])) and _close(res[False], res[True]) < TOL

@@ -665,7 +665,9 @@ def solve(a_in, b_in, sa_in, sb_in, key, man_in, normal, point, depth, mu_k, mu_
         if spec:
             closing = -vn0[q]
             if closing > 0.0:
-                tq = sp / (closing * dt)
+                # (closing x dt may underflow to zero for a rounding-noise speed: the numpy path's
+                # floor of 1e-300 keeps tau finite, and 1.0 for such a row)
+                tq = sp / max(closing * dt, 1e-300)
                 tau[q] = tq if tq < 1.0 else 1.0
             vn_toi[q] = vn0[q] + g * (tau[q] - 0.5)
             targ[q] = -e[q] * vn_toi[q] + g * (0.5 - tau[q])
