@@ -184,12 +184,13 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     lu = _factor(_sparse_rows(Gn[jr], ua, ub, ca, cb, size, w), Hm)
     HmT = Hm.T.tocsr()
     last = np.inf
-    for p in range(passes):
+    err = C[jr]
+    for p in range(passes + 1):
         if p:
             C, _ = _errors(alg, bodies, joints, rows, kind, False)
-        err = C[jr]
+            err = C[jr]
         largest = float(np.abs(err).max())
-        if largest <= _DONE or largest >= last:
+        if p == passes or largest <= _DONE or largest >= last:
             break
         last = largest
         dv = (HmT @ lu.solve(-err / dt)).reshape(N + 1, w)[:N]
@@ -199,11 +200,13 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
         _move(alg, bodies, moved, dt * dv[moved])
 
     # what is left after a violent step: project at the current poses, positions only
+    if largest <= _PROJECT_ABOVE:
+        return
     imA, IA, imB, IB = side_inverses(bodies, rows.a, rows.b)
-    for _ in range(2):
+    for q in range(2):
         C, G = _errors(alg, bodies, joints, rows, kind, True)
         err = C[jr]
-        if float(np.abs(err).max()) <= _PROJECT_ABOVE:
+        if q and float(np.abs(err).max()) <= _PROJECT_ABOVE:
             break
         H = response(G, imA, IA, imB, IB)
         Hc = _sparse_rows(H[jr], ua, ub, ca, cb, size, w)

@@ -314,8 +314,10 @@ def sleep_stages() -> list[tuple[str, Stage]]:
 
 
 def _stage_accelerate(sim: Simulation, dt: float) -> None:
-    _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic,
-                          compiled=_kernels.use_compiled(sim.settings))
+    split = _integrate.accelerate(sim.alg, sim.bodies, sim.gravity, dt, sim.settings.gyroscopic,
+                                  compiled=_kernels.use_compiled(sim.settings))
+    if split is not None:  # the split mode: its momenta, for the end of the step
+        sim.caches["split_momenta"] = split
 
 
 def _stage_advance_poses(sim: Simulation, dt: float) -> None:
@@ -324,6 +326,7 @@ def _stage_advance_poses(sim: Simulation, dt: float) -> None:
     if rows is not None and sim.settings.joint_position_passes:
         _joint_positions.project(sim.alg, sim.bodies, sim.joints, rows,
                                  sim.settings.joint_position_passes, dt)
+    _integrate.keep_split_momenta(sim.alg, sim.bodies, sim.caches.pop("split_momenta", None))
 
 
 def default_stages() -> list[tuple[str, Stage]]:
