@@ -193,3 +193,35 @@ def test_simulation_steps_agree(dim: int) -> None:
     assert _close(sims[False].joints.impulse, sims[True].joints.impulse) < TOL
     assert sims[True].contacts is not None and sims[True].contacts.count > 0  # the ragdolls landed
     assert np.abs(sims[True].joints.impulse).max() > 1e-3
+
+
+@pytest.mark.parametrize("kind", KINDS)
+@dims()
+def test_position_pass_lockstep(dim: int, kind: str, rng: np.random.Generator) -> None:
+    """The position pass (joint_positions.project) both ways on the same moved bodies: the errors
+    and moves by the kernels, the sparse solves by scipy on both; same poses and velocities. It
+    moves the bodies of every kind with rigid rows (not a spring, nor a soft weld).
+
+    The scene's joint to the moving kinematic body is removed first: with it the rigid kinds
+    close a loop world - body 0 - body 1 - body 4 - mover that no pose can satisfy, where the
+    regularised matrix (relative 1e-10) turns rounding into differences of ~1e-8."""
+    from ndrigid.core.dynamics import integrate, joint_positions
+
+    sim = _scene(dim, kind, rng)
+    sim.remove_joint(int(sim.joint_handles()[1]))  # the second joint made: body 4 and the mover
+    for _ in range(6):
+        sim.step()
+    dt = sim.settings.dt
+    rows = J.prepare(sim.alg, sim.bodies, sim.joints, sim.info.handle_to_row, dt, sim.settings)
+    J.run(rows, sim.bodies, sim.settings.joint_passes, True, settings=Settings(compiled=False))
+    integrate.advance_poses(sim.alg, sim.bodies, dt)
+    res = {}
+    for compiled in (False, True):
+        b = copy.deepcopy(sim.bodies)
+        passes = sim.settings.joint_position_passes
+        joint_positions.project(sim.alg, b, sim.joints, copy.deepcopy(rows), passes, dt, compiled=compiled)
+        res[compiled] = b
+    for name in ("position", "rotor", "rotation", "velocity", "angular_velocity"):
+        assert _close(getattr(res[False], name), getattr(res[True], name)) < TOL, name
+    moved = _close(res[True].position, sim.bodies.position)
+    assert (moved == 0.0) if kind in ("spring", "soft_weld") else (moved > 1e-12), moved

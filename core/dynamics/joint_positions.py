@@ -41,10 +41,12 @@ from numpy.typing import NDArray
 from scipy import sparse
 from scipy.sparse.linalg import splu
 
+from .. import kernels as _kernels
 from ..algebra import Algebra
 from ..state.components import Bodies
-from ..state.joints import DISTANCE, HINGE, SPRING, WHEEL, JointSet
+from ..state.joints import DISTANCE, HINGE, POINT, SLIDER, SPRING, WELD, WHEEL, JointSet
 from .joints import JointRows, _wedge, equality_rows, hinge_angles, joint_geometry, response, side_inverses
+from .solver import tangent_basis
 
 Array = NDArray[np.float64]
 IntArray = NDArray[np.int64]
@@ -103,13 +105,15 @@ def _scalar_rows(alg: Algebra, joints: JointSet, js: IntArray, kind: NDArray[np.
 def _sparse_rows(Gr: Array, use_a: NDArray[np.bool_], use_b: NDArray[np.bool_], colA: IntArray,
                  colB: IntArray, size: int, w: int) -> sparse.csr_matrix:
     """Rows Gr (m, 2 w) on the pair states as a sparse (m, size) matrix on all bodies' states;
-    a side that takes no impulse (static, asleep, the world) is left out."""
+    a side that takes no impulse (static, asleep, the world) is left out. Built as CSR arrays
+    directly (each row: A's w columns, then B's; no duplicates, so no COO sort is needed)."""
     m = Gr.shape[0]
-    row = np.arange(m)
-    ri = np.concatenate([np.repeat(row[use_a], w), np.repeat(row[use_b], w)])
-    ci = np.concatenate([colA[use_a].ravel(), colB[use_b].ravel()])
-    val = np.concatenate([Gr[use_a, :w].ravel(), Gr[use_b, w:].ravel()])
-    return sparse.csr_matrix((val, (ri, ci)), shape=(m, size))
+    keep = np.concatenate([np.repeat(use_a[:, None], w, axis=1), np.repeat(use_b[:, None], w, axis=1)],
+                          axis=1)
+    cols = np.concatenate([colA, colB], axis=1)
+    indptr = np.zeros(m + 1, dtype=np.int64)
+    np.cumsum(w * (use_a.astype(np.int64) + use_b), out=indptr[1:])
+    return sparse.csr_matrix((Gr[keep], cols[keep], indptr), shape=(m, size))
 
 
 def _factor(Gm: sparse.csr_matrix, Hm: sparse.csr_matrix) -> Any:
@@ -135,8 +139,44 @@ def _errors(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows, kin
     return C, (np.concatenate([G, Gs[:, None, :]], axis=1) if with_rows else None)
 
 
+def _pass_functions(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows,
+                    kind: NDArray[np.int8], compiled: bool) -> tuple[Any, Any]:
+    """``errors()`` (the joints' position errors (J, R + 1) now) and ``move(rows, shift)`` (as
+    :func:`_move`) on the numpy path or by the compiled kernels."""
+    if not compiled:
+        return (lambda: _errors(alg, bodies, joints, rows, kind, False)[0],
+                lambda moved, shift: _move(alg, bodies, moved, shift))
+    n = alg.n
+    sel = rows.sel
+    lin_mode = np.where((kind == POINT) | (kind == WELD) | (kind == HINGE), 1,
+                        np.where((kind == SLIDER) | (kind == WHEEL), 2, 0)).astype(np.int8)
+    ang_on = np.zeros((sel.size, alg.k), dtype=np.bool_)
+    ang_on[(kind == WELD) | (kind == SLIDER)] = True
+    ang_on[(kind == HINGE) | (kind == WHEEL), 1:] = True
+    scalar_mode = np.where(kind == DISTANCE, 1, np.where(kind == HINGE, 2, 0)).astype(np.int8)
+    across = tangent_basis(joints.axis_a[sel]) if sel.size else np.zeros((0, n - 1, n))
+    jk = _kernels.load("joints", n)
+    ik = _kernels.load("integrate", n)
+    fixed = (np.ascontiguousarray(rows.a, dtype=np.int64), np.ascontiguousarray(rows.b, dtype=np.int64),
+             lin_mode, ang_on, scalar_mode)
+    body_frame = tuple(np.ascontiguousarray(x, dtype=np.float64) for x in (
+        joints.anchor_a[sel], joints.anchor_b[sel], joints.frame_a[sel], joints.frame_b[sel], across,
+        joints.min_length[sel], joints.max_length[sel], joints.lower[sel], joints.upper[sel]))
+    out = np.zeros((sel.size, alg.n + alg.k + 1))
+
+    def errors() -> Array:
+        jk.position_errors(*fixed, bodies.position, bodies.rotation, *body_frame, out)
+        return out.copy()
+
+    def move(moved: IntArray, shift: Array) -> None:
+        ik.push_poses(np.ascontiguousarray(moved, dtype=np.int64), np.ascontiguousarray(shift),
+                      bodies.local_centroid, bodies.position, bodies.rotor, bodies.rotation)
+
+    return errors, move
+
+
 def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | None, passes: int,
-            dt: float) -> None:
+            dt: float, compiled: bool = False) -> None:
     """Hold the rigid joints at the position level after the bodies have moved.
 
     ``rows`` are the step's velocity rows (:func:`ndrigid.core.dynamics.joints.prepare`, taken at
@@ -149,7 +189,11 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     condition, Ryckaert, Ciccotti and Berendsen 1977, solved to convergence). Where an error
     above ``_PROJECT_ABOVE`` is left (a violent step), up to two Newton passes at the current
     poses move the bodies without touching the velocities (post-stabilisation, Cline and Pai
-    2003); they converge quadratically but do not keep angular momentum exactly."""
+    2003); they converge quadratically but do not keep angular momentum exactly.
+
+    ``compiled``: the errors of the momentum-keeping passes and the bodies' moves run in the
+    compiled ``joints`` and ``integrate`` kernels (the same statements as :func:`_errors` and
+    :func:`_move`, as loops); the sparse solves are scipy's on both paths."""
     if passes <= 0 or rows is None:
         return
     kind = joints.kind[rows.sel]
@@ -169,7 +213,8 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     colA = rows.a[:, None] * w + cols  # (J, w) state columns of each side
     colB = rows.b[:, None] * w + cols
 
-    C, _ = _errors(alg, bodies, joints, rows, kind, False)
+    errors, move = _pass_functions(alg, bodies, joints, rows, kind, compiled)
+    C = errors()
     # the rows to hold, fixed over the passes: the rigid block rows, a rod, and a rope or a limit
     # that is violated now
     on = np.concatenate([on_block, (scalar & (C[:, -1] != 0.0))[:, None]], axis=1)
@@ -187,8 +232,7 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     err = C[jr]
     for p in range(passes + 1):
         if p:
-            C, _ = _errors(alg, bodies, joints, rows, kind, False)
-            err = C[jr]
+            err = errors()[jr]
         largest = float(np.abs(err).max())
         if p == passes or largest <= _DONE or largest >= last:
             break
@@ -197,7 +241,7 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
         moved = np.nonzero(np.any(dv != 0.0, axis=1))[0]
         bodies.velocity[moved] += dv[moved, :n]
         bodies.angular_velocity[moved] += dv[moved, n:]
-        _move(alg, bodies, moved, dt * dv[moved])
+        move(moved, dt * dv[moved])
 
     # what is left after a violent step: project at the current poses, positions only
     if largest <= _PROJECT_ABOVE:
@@ -213,7 +257,7 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
         shift = (Hc.T @ _factor(_sparse_rows(G[jr], ua, ub, ca, cb, size, w), Hc).solve(-err))
         shift = shift.reshape(N + 1, w)[:N]
         moved = np.nonzero(np.any(shift != 0.0, axis=1))[0]
-        _move(alg, bodies, moved, shift[moved])
+        move(moved, shift[moved])
 
 
 #: relative regularisation of the joints' position matrices (a redundant row then shares the

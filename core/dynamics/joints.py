@@ -226,11 +226,19 @@ def block_inverse(G: Array, H: Array, C: Array, on: NDArray[np.bool_]) -> Array:
 
 
 def colour_order(ia: IntArray, ib: IntArray, dynA: NDArray[np.bool_], dynB: NDArray[np.bool_],
-                 N: int) -> tuple[IntArray, IntArray]:
+                 N: int, compiled_dim: int | None = None) -> tuple[IntArray, IntArray]:
     """Solve order of joints (sorted by colour, then by their own order: no dynamic body twice in a
-    colour) and the bounds (colours + 1,) of each colour in it."""
+    colour) and the bounds (colours + 1,) of each colour in it. ``compiled_dim``: the greedy colouring
+    by that dimension's solver kernel ``colour_rows`` (the same colours as :func:`colour_items`:
+    tests/test_kernels_lockstep.py)."""
     J = ia.shape[0]
-    colour = colour_items(ia, ib, dynA, dynB, J - np.arange(J, dtype=np.int64), N)
+    priority = J - np.arange(J, dtype=np.int64)
+    if compiled_dim is not None:
+        colour = _kernels.load("solver", compiled_dim).colour_rows(
+            np.ascontiguousarray(ia, dtype=np.int64), np.ascontiguousarray(ib, dtype=np.int64),
+            np.ascontiguousarray(dynA), np.ascontiguousarray(dynB), priority, N + 1)
+    else:
+        colour = colour_items(ia, ib, dynA, dynB, priority, N)
     order = np.argsort(colour, kind="stable")
     ncol = int(colour.max()) + 1
     return order, np.searchsorted(colour[order], np.arange(ncol + 1))
@@ -383,7 +391,7 @@ def prepare(alg: Algebra, bodies: Bodies, joints: JointSet, handle_to_row: IntAr
     lam[:, R:] = np.clip(lam[:, R:], lo, hi)
 
     # colours: no dynamic body twice in one (joints sorted by colour, then by their own order)
-    order, bounds = colour_order(ia, ib, dynA, dynB, N)
+    order, bounds = colour_order(ia, ib, dynA, dynB, N, n if _kernels.use_compiled(settings) else None)
 
     def o(x: Any) -> Any:
         return x[order]

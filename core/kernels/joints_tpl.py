@@ -138,6 +138,83 @@ def run(a, b, G, H, Kinv, bias, mscale, iscale, Gs, Hs, bias_s, lo, hi, ms_s, is
                  on_s, X, passes)
 
 
+@njit(cache=True)
+def position_errors(a, b, lin_mode, ang_on, scalar_mode, position, rotation, anchor_a, anchor_b, frame_a,
+                    frame_b, across_a, min_len, max_len, lower, upper, C):
+    """Position errors C (J, R + 1) of the joints at the bodies' current poses, as
+    ``joint_positions._errors`` states them: the block's linear slots (lin_mode 1: the anchors'
+    offset; 2: its parts across A's line, ``across_a`` in A's axes; 0: none), its angular slots
+    (f_a . f_b of the frame pairs, where ``ang_on``) and the scalar position row (scalar_mode 1:
+    a rod's or rope's length outside [min_len, max_len]; 2: a hinge angle outside [lower, upper]).
+    Side b = the body count is the world (identity pose)."""
+    J = a.shape[0]
+    nb = position.shape[0]
+    RA = np.empty((N, N))
+    RB = np.empty((N, N))
+    d = np.empty(N)
+    for j in range(J):
+        ia = a[j]
+        ib = b[j]
+        for r in range(N):
+            for c in range(N):
+                RA[r, c] = rotation[ia, r, c]
+                RB[r, c] = rotation[ib, r, c] if ib < nb else (1.0 if r == c else 0.0)
+        for r in range(N):
+            sa = position[ia, r]
+            sb = position[ib, r] if ib < nb else 0.0
+            for c in range(N):
+                sa += RA[r, c] * anchor_a[j, c]
+                sb += RB[r, c] * anchor_b[j, c]
+            d[r] = sb - sa
+        for r in range(N + K + 1):
+            C[j, r] = 0.0
+        if lin_mode[j] == 1:
+            for r in range(N):
+                C[j, r] = d[r]
+        elif lin_mode[j] == 2:
+            for q in range(N - 1):
+                t = 0.0
+                for r in range(N):
+                    ur = 0.0
+                    for c in range(N):
+                        ur += RA[r, c] * across_a[j, q, c]
+                    t += ur * d[r]
+                C[j, q] = t
+        for p in range(K):
+            if not ang_on[j, p]:
+                continue
+            t = 0.0
+            for r in range(N):
+                xa = 0.0
+                xb = 0.0
+                for c in range(N):
+                    xa += RA[r, c] * frame_a[j, PAIRS[p, 0], c]
+                    xb += RB[r, c] * frame_b[j, PAIRS[p, 1], c]
+                t += xa * xb
+            C[j, N + p] = t
+        if scalar_mode[j] == 1:
+            length = 0.0
+            for r in range(N):
+                length += d[r] * d[r]
+            length = np.sqrt(length)
+            C[j, N + K] = max(length - max_len[j], 0.0) + min(length - min_len[j], 0.0)
+        elif scalar_mode[j] == 2:
+            s1 = 0.0
+            s0 = 0.0
+            for r in range(N):
+                x0 = 0.0
+                x1 = 0.0
+                y0 = 0.0
+                for c in range(N):
+                    x0 += RA[r, c] * frame_a[j, 0, c]
+                    x1 += RA[r, c] * frame_a[j, 1, c]
+                    y0 += RB[r, c] * frame_b[j, 0, c]
+                s1 += x1 * y0
+                s0 += x0 * y0
+            th = np.arctan2(s1, s0)
+            C[j, N + K] = max(th - upper[j], 0.0) + min(th - lower[j], 0.0)
+
+
 def warm_up():
     """Compile every specialisation the engine calls (one joint between a body and the world)."""
     i0 = np.zeros(1, np.int64)
@@ -155,3 +232,8 @@ def warm_up():
     X = np.zeros((2, W))
     run(i0, i1, G, H, Kinv, np.zeros((1, R)), f1, f1 - 1.0, Gs, Gs.copy(), fs, fs - np.inf, fs + np.inf,
         fs + 1.0, fs.copy(), fs.copy(), lam, on, on_s, X, True, 1)
+    eye = np.eye(N).reshape(1, N, N)
+    i8 = np.ones(1, np.int8)
+    zn = np.zeros((1, N))
+    position_errors(i0, i1, i8, np.ones((1, K), np.bool_), i8, zn, eye.copy(), zn, zn.copy(), eye.copy(),
+                    eye.copy(), np.zeros((1, N - 1, N)), f1 - 1.0, f1, f1 - 2.0, f1, np.zeros((1, R + 1)))

@@ -324,8 +324,8 @@ def _stage_advance_poses(sim: Simulation, dt: float) -> None:
     _integrate.advance_poses(sim.alg, sim.bodies, dt, compiled=_kernels.use_compiled(sim.settings))
     rows = sim.caches.pop("joint_rows", None)
     if rows is not None and sim.settings.joint_position_passes:
-        _joint_positions.project(sim.alg, sim.bodies, sim.joints, rows,
-                                 sim.settings.joint_position_passes, dt)
+        _joint_positions.project(sim.alg, sim.bodies, sim.joints, rows, sim.settings.joint_position_passes,
+                                 dt, compiled=_kernels.use_compiled(sim.settings))
     _integrate.keep_split_momenta(sim.alg, sim.bodies, sim.caches.pop("split_momenta", None))
 
 
