@@ -193,9 +193,11 @@ def _half_turn(sim: Simulation, u: np.ndarray) -> np.ndarray:
 def _demo_builder(name: str) -> SceneBuilder:
     """A bench scene from the demo's own scene factory (the same builder the window uses).
 
-    The scene's per-frame script (the conveyor's pusher, for one) runs as a first stage of the
-    step, so the timed steps are the demo's physics frames; the esper adapter's sync is not part
-    of them (``bench.adapters`` measures it).
+    The scene's per-frame script (the conveyor's pusher, the drawbridge's winch, for two) runs as
+    a first stage of the step, so the timed steps are the demo's physics frames. The bodies a
+    script spawns (the conveyor's crates, the drawbridge's kegs) are made by the esper adapter's
+    sync at the end of that stage, as the window's frame makes them before its step; on frames
+    that spawn nothing the sync returns at once (``bench.adapters`` measures it).
     """
 
     def build(dim: int, bodies: int, seed: int) -> tuple[Simulation, int]:
@@ -210,6 +212,7 @@ def _demo_builder(name: str) -> SceneBuilder:
         def tick(sim_: Simulation, dt: float) -> None:
             if info.tick is not None:
                 info.tick(world, clock["t"])
+                world.sync()
             clock["t"] += dt
 
         sim.stages = [("demo_script", tick), *sim.stages]
@@ -220,7 +223,7 @@ def _demo_builder(name: str) -> SceneBuilder:
     return build
 
 
-DEMO_SCENES = ("rockfall", "billiards", "conveyor")
+DEMO_SCENES = ("rockfall", "billiards", "conveyor", "drawbridge")
 
 SCENES: dict[str, SceneBuilder] = {
     "pile": build_pile,

@@ -40,7 +40,8 @@ HELP = [
     ("space", "pause / resume"),
     (".", "single step while paused"),
     ("R", "reset the scene"),
-    ("tab / 1-3", "switch scenes (the slice and camera recentre)"),
+    ("tab / 1-4", "switch scenes (the slice and camera recentre)"),
+    ("B", "drawbridge scene: raise / lower the deck now"),
     ("P", "perspective / orthographic"),
     ("H", "this help"),
     ("esc", "quit"),
@@ -338,6 +339,8 @@ class App:
                 self.show_help = not self.show_help
             elif k == pg.K_p:
                 self.perspective = not self.perspective
+            elif pg.key.name(k) in self.info.keys:  # the scene's own keys (SceneInfo.keys)
+                self.info.keys[pg.key.name(k)][1](self.world)
         return True
 
     def _motion_keys(self) -> set[int]:
@@ -425,8 +428,32 @@ class App:
         """2-D world or 2-D slice: polygons, discs with a turning mark, clipped half-spaces (the
         room's walls drawn 0.4 m thick)."""
         self.view().draw(surf, poses=self.poses(), region=self.wall_box([0, 1]))
+        self.draw_lines(surf)
         if self.grab is not None:
             self._draw_spring(surf)
+
+    #: a scene's lines (ropes) are drawn where they lie within this distance (m) of the slice
+    LINE_REACH = 0.5
+
+    def draw_lines(self, surf: Any) -> None:
+        """The scene's polylines (:attr:`SceneInfo.lines`, ropes between joint anchors) over the
+        bodies, in the flat views and the 3-D views alike, where they lie near the slice."""
+        if self.info.lines is None:
+            return
+        flat = self.flat()
+        cam = self.camera() if flat.slice_dim == 3 else None
+        for points, colour in self.info.lines(self.world):
+            off = (points - flat.point) @ flat.normals.T
+            if len(off.T) and np.abs(off).max() > self.LINE_REACH:
+                continue
+            s = flat.to_slice(points)
+            if cam is None:
+                px = self.to_screen(s)
+            else:
+                px, depth = self.project3(s, cam)
+                if np.any(depth <= 0):
+                    continue
+            self.pg.draw.lines(surf, colour, False, px.tolist(), 2)
 
     def _draw_spring(self, surf: Any) -> None:
         from . import palette as P
@@ -446,6 +473,7 @@ class App:
         # the room's walls as low kerbs (0.35 m), so they mark the room without hiding it
         box = self.wall_box([0, 1, 2], height=0.35, thick=0.3, below=1.0)
         self.view().draw(surf, poses=self.poses(), region=box, camera=self.camera())
+        self.draw_lines(surf)
         if self.grab is not None:
             self._draw_spring(surf)
 

@@ -21,6 +21,12 @@ CRATE_PINE: Colour = (150, 100, 56)      # crates
 BELT_STEEL: Colour = (120, 132, 160)      # conveyor belt (static)
 PUSHER_BLUE: Colour = (70, 140, 230)      # the conveyor's pusher (kinematic)
 CUE_IVORY: Colour = (240, 234, 214)       # the cue ball
+BRIDGE_TIMBER: Colour = (176, 118, 62)    # the drawbridge's deck
+GATE_VERDIGRIS: Colour = (72, 150, 130)   # the swinging gate (weathered bronze)
+KEG_GOLD: Colour = (232, 204, 112)        # kegs rolled across the bridge
+KEEP_SANDSTONE: Colour = (168, 160, 140)  # the castle's gatehouse wall (static)
+MOAT_BLUE: Colour = (24, 84, 140)         # the moat's bed (static)
+ROPE_HEMP: Colour = (204, 190, 160)       # ropes and chains drawn between joint anchors
 SIGNAL_AMBER: Colour = (255, 196, 64)     # picked body, drag spring
 CHALK: Colour = (226, 230, 236)           # text
 FADED_CHALK: Colour = (140, 148, 160)     # secondary text, grid, slice-plane marker
@@ -38,6 +44,11 @@ ROLE_COLOURS: dict[str, Colour] = {
     "belt": BELT_STEEL,
     "pusher": PUSHER_BLUE,
     "cue": CUE_IVORY,
+    "deck": BRIDGE_TIMBER,
+    "gate": GATE_VERDIGRIS,
+    "keg": KEG_GOLD,
+    "keep": KEEP_SANDSTONE,
+    "moat": MOAT_BLUE,
 }
 
 

@@ -14,6 +14,9 @@ bodies the story is about stay in the slice the window shows.
 * ``billiards`` -- a cue ball breaks a racked cluster on a felt table walled by cushions.
 * ``conveyor``  -- a kinematic pusher sweeps crates along a belt; they drop off its end, slide down a
   chute and collect in a bin.
+* ``drawbridge`` -- a winch motor raises and lowers a timber deck on a plane hinge across a moat
+  (angle limits, a rope to the gatehouse); while it is down, kegs roll over it and push through a
+  swinging gate into the castle yard.
 
 A scene factory takes ``(world, dim, count, rng)`` (``count`` dynamic bodies) and returns a
 :class:`SceneInfo` saying where the view should look, the room's bounds, what to do every frame
@@ -48,6 +51,10 @@ class SceneInfo:
             basin, balls moved by the break, crates in the bin), or None.
         progress_label: what ``progress`` counts, for the status line.
         solid_height: x_1 of the point the 3-D views' camera looks at (None: ``centre``'s).
+        lines: called with the world, returns polylines to draw over the bodies (ropes between
+            joint anchors): a list of (points (P, n) in world coordinates, colour), or None.
+        keys: the scene's own keys: pygame key name (``"b"``) -> (what it does, for the help
+            overlay; a function of the world called when the key goes down).
     """
 
     centre: tuple[float, float]
@@ -58,6 +65,8 @@ class SceneInfo:
     progress_label: str = ""
     solid_height: float | None = None
     state: dict[str, Any] = field(default_factory=dict)
+    lines: Callable[[DemoWorld], list[tuple[np.ndarray, tuple[int, int, int]]]] | None = None
+    keys: dict[str, tuple[str, Callable[[DemoWorld], None]]] = field(default_factory=dict)
 
 
 SceneFactory = Callable[[DemoWorld, int, int, np.random.Generator], SceneInfo]
@@ -407,6 +416,183 @@ def conveyor(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -
     info.progress = progress
     world.sync()
     tick(world, 0.0)
+    return info
+
+
+# Drawbridge tuning (the deck, the winch and the gate):
+# * the deck turns on a plane hinge in -e_0 ^ e_1 about its castle-side top edge: angle 0 is
+#   lowered (its far end in a seat cut into the outer bank, its top flush with the bank) and
+#   BRIDGE_RAISED is the upper limit; the winch is the hinge's motor, run at +-BRIDGE_SPEED
+#   against one limit or the other (the limits and the seat stop it, the motor's torque limit
+#   keeps it from fighting them harder than it needs to lift the deck and a few kegs:
+#   DECK_MASS * g * half the deck's length is 6.1 kN m).
+# * ropes (distance joints with only a maximum length) run from the gatehouse to the deck's
+#   far end: taut within ROPE_SLACK of the lowered deck, slack (and drawn sagging) once it rises.
+# * the gate is a bronze flap hanging from the gatehouse on a hinge in e_0 ^ e_1 that opens only
+#   inwards (limits -0.05 .. 1.35 rad); its motor at speed 0 with GATE_DAMPING of torque is the
+#   hinge's friction, so the flap comes to rest after a keg has pushed through.
+BRIDGE_RAISED = 1.35
+BRIDGE_SPEED = 0.6
+BRIDGE_TORQUE = 2.5e4
+DECK_MASS = 250.0
+ROPE_SLACK = 0.02
+GATE_DAMPING = 8.0
+YARD_SLOPE = 0.08
+#: collision layers: the room's depth sides sit on SIDE_LAYER; the hinged deck and gate collide
+#: with everything else (HINGED_MASK)
+SIDE_LAYER = 2
+HINGED_MASK = 0xFFFFFFFF & ~SIDE_LAYER
+#: the winch's cycle, seconds: the deck is lowered from the start, raised at RAISE_AT, lowered
+#: again at LOWER_AT, and the cycle repeats every CYCLE (key B jumps to the next change)
+RAISE_AT, LOWER_AT, CYCLE = 4.5, 9.5, 13.0
+#: kegs: released on the outer bank every KEG_EVERY s from KEGS_FROM to KEGS_TO s of each
+#: cycle (while the deck is down), rolling at KEG_SPEED m/s towards the bridge
+KEG_RADIUS, KEG_MASS, KEG_SPEED = 0.3, 20.0, 2.5
+KEGS_FROM, KEGS_TO, KEG_EVERY = 0.2, 2.7, 0.6
+
+
+def rope_curve(a: np.ndarray, b: np.ndarray, length: float, points: int = 17) -> np.ndarray:
+    """(points, n) world points of a rope of ``length`` hung between a and b: straight when taut,
+    else a parabola sagging along -e_1 whose arc length is about ``length`` (for a shallow sag s
+    over a span D the arc is D + 8 s^2 / (3 D))."""
+    u = np.linspace(0.0, 1.0, points)[:, None]
+    span = float(np.linalg.norm(b - a))
+    slack = max(0.0, length - span)
+    sag = float(np.sqrt(3.0 * span * slack / 8.0)) if span > 1e-9 else 0.0
+    down = np.zeros(len(a))
+    down[1] = -1.0
+    return a + u * (b - a) + 4.0 * sag * u * (1.0 - u) * down
+
+
+@scene("drawbridge", "Drawbridge: a winch motor swings a deck on a plane hinge over a moat; kegs roll "
+                     "across and through a swinging gate")
+def drawbridge(world: DemoWorld, dim: int, count: int, rng: np.random.Generator) -> SceneInfo:
+    from . import palette as P
+
+    hidden, shown = 0.45, 1.5
+    d = depths(dim, shown, hidden)
+    # the room's sides across the depth axes are on collision layer SIDE_LAYER, which the deck and
+    # the gate do not see: their hinges hold them in the e_0 ^ e_1 plane, so they never need the
+    # sides, and the pairs are not worth their broadphase and narrowphase time
+    lo, hi = room(world, vec(dim, -8.2, 0.0, -d), vec(dim, 8.2, 10.0, d), floor_role="moat",
+                  floor={"friction": 0.4}, walls={"friction": 0.3}, sides={"layer": SIDE_LAYER})
+    top, thick = 2.0, 0.24  # the banks' height; the deck's thickness
+    seat_x, far, hinge_x, yard_x = -2.6, -2.55, 2.4, 2.45  # seat's edge, deck's ends, yard's edge
+    wall_x, pin_y, gate_half = (3.3, 3.9), 3.45, 0.66  # the gatehouse wall; the gate's pin, half height
+
+    def block(x0: float, x1: float, y0: float, y1: float, role: str) -> int:
+        return world.add(slab(dim, (x1 - x0) / 2, (y1 - y0) / 2, d + 0.3),
+                         vec(dim, (x0 + x1) / 2, (y0 + y1) / 2), role=role, kind="static", friction=0.5)
+
+    block(float(lo[0]), seat_x, 0.0, top, "ground")  # the outer bank
+    block(seat_x, -2.0, 0.0, top - thick, "ground")  # the seat of the deck's far end
+    yard = block(yard_x, wall_x[1], 0.0, top, "ground")  # the gateway
+    # the castle yard beyond the gate falls by YARD_SLOPE towards the far wall, so kegs roll on
+    # and the gate swings shut behind them
+    c, s_ = np.cos(YARD_SLOPE), np.sin(YARD_SLOPE)
+    length, half = (float(hi[0]) - wall_x[1]) / c, 1.0
+    world.add(slab(dim, length / 2, half, d + 0.3),
+              vec(dim, wall_x[1] + length / 2 * c - half * s_, top - length / 2 * s_ - half * c),
+              role="ground", kind="static", rotor=tilt(world, -YARD_SLOPE), friction=0.5)
+    keep = block(wall_x[0], wall_x[1], pin_y + 0.1, 7.6, "keep")  # the gatehouse wall over the gate
+    deck_pos = vec(dim, (hinge_x + far) / 2, top - thick / 2)
+    deck = world.add(slab(dim, (hinge_x - far) / 2, thick / 2, depths(dim, 1.2, 0.4)), deck_pos, role="deck",
+                     mass=DECK_MASS, friction=0.6, mask=HINGED_MASK)
+    gate_x = sum(wall_x) / 2
+    gate = world.add(slab(dim, 0.06, gate_half, depths(dim, 1.3, 0.4)), vec(dim, gate_x, pin_y - gate_half),
+                     role="gate", mass=6.0, friction=0.3, mask=HINGED_MASK)
+    world.sync()
+    sim, handle = world.sim, world.physics.handle_of
+    raise_plane = np.zeros(world.alg.k)
+    raise_plane[0] = -1.0  # -e_0 ^ e_1: turns -e_0 (the far end) towards +e_1
+    hinge = sim.add_joint("hinge", handle(yard), handle(deck), anchor=vec(dim, hinge_x, top),
+                          plane=raise_plane, lower=0.0, upper=BRIDGE_RAISED, max_motor_torque=BRIDGE_TORQUE)
+    # one rope in the middle of the deck where the view is a flat slice (2-D, 3-D), two near its
+    # edges along the drawn depth axis e_2 where it is a solid (4-D, 5-D)
+    ropes = []
+    for side in ([0.0] if dim < 4 else [-1.0, 1.0]):
+        post, end = vec(dim, wall_x[0], 7.3), vec(dim, far + 0.1, top)
+        if dim >= 4:
+            post[2] = end[2] = side
+        rope_length = float(np.linalg.norm(end - post)) + ROPE_SLACK
+        ropes.append((sim.add_joint("distance", handle(keep), handle(deck), anchor=post, anchor_b=end,
+                                    max_length=rope_length), post, end - deck_pos))
+    swing = np.zeros(world.alg.k)
+    swing[0] = 1.0  # e_0 ^ e_1: the hanging flap's foot swings towards +e_0, into the yard
+    gate_hinge = sim.add_joint("hinge", handle(keep), handle(gate), anchor=vec(dim, gate_x, pin_y),
+                               plane=swing, lower=-0.05, upper=1.35, max_motor_torque=GATE_DAMPING)
+    kegs: list[int] = []
+    info = SceneInfo(centre=(0.0, 4.4), span=17.0, bounds=(lo, hi), progress_label="kegs through the gate",
+                     solid_height=2.6,
+                     state={"deck": deck, "gate": gate, "kegs": kegs, "count": count, "hinge": hinge,
+                            "ropes": [r[0] for r in ropes], "gate_hinge": gate_hinge,
+                            "rope_length": rope_length,
+                            "raised": BRIDGE_RAISED, "lowered": 0.0, "gate_x": wall_x[1], "top": top,
+                            "up": None, "shift": 0.0, "t": 0.0, "next": 0.0, "released": 0,
+                            "through": 0, "counted": set(), "moat": (far, yard_x)})
+    st = info.state
+
+    def release(w: DemoWorld) -> None:
+        """Roll a keg out on the outer bank: the one farthest into the yard, or one in the moat,
+        if there is one (moving or not: the kegs behind it roll on down the slope), else a new
+        one (at most ``count``)."""
+        at = vec(dim, -7.3, top + KEG_RADIUS + 0.01, depth_jitter(dim, rng, 0.05, shown=0.5))
+        v = vec(dim, KEG_SPEED)
+        spin = np.zeros(w.alg.k)
+        spin[0] = -KEG_SPEED / KEG_RADIUS  # rolling: the contact point at -r e_1 is at rest
+        idle = []
+        for e in kegs:
+            h = w.physics.handle_of(e)
+            p = w.sim.position(h)
+            if p[0] > wall_x[1] + 0.5 or p[1] < top - 0.5:
+                idle.append((float(p[0]) + (1e3 if p[1] < top - 0.5 else 0.0), e))
+        if idle:
+            e = max(idle)[1]
+            h = w.physics.handle_of(e)
+            w.sim.set_pose(h, position=at, rotor=w.alg.rotor(np.zeros(w.alg.k)))
+            w.sim.set_velocity(h, v, spin)
+            st["counted"].discard(e)
+        elif len(kegs) < count:
+            kegs.append(w.add(Ball(dim, KEG_RADIUS), at, role="keg", velocity=v, angular_velocity=spin,
+                              mass=KEG_MASS, friction=0.5, restitution=0.1))
+        else:
+            return
+        st["released"] += 1
+
+    def tick(w: DemoWorld, t: float) -> None:
+        w.sync()
+        st["t"] = t
+        phase = (t + st["shift"]) % CYCLE
+        up = RAISE_AT <= phase < LOWER_AT
+        if up != st["up"]:
+            st["up"] = up
+            w.sim.set_motor(hinge, speed=BRIDGE_SPEED if up else -BRIDGE_SPEED)
+        for e in kegs:
+            if e not in st["counted"] and w.sim.position(w.physics.handle_of(e))[0] > wall_x[1]:
+                st["counted"].add(e)
+                st["through"] += 1
+        if (not up and KEGS_FROM <= phase < KEGS_TO and t >= st["next"]
+                and w.sim.joint_angle(hinge) < 0.05):
+            release(w)
+            st["next"] = t + KEG_EVERY
+
+    def toggle(w: DemoWorld) -> None:
+        """Key B: start raising now if the deck is lowered or coming down, else start lowering."""
+        phase = (st["t"] + st["shift"]) % CYCLE
+        target = LOWER_AT if RAISE_AT <= phase < LOWER_AT else RAISE_AT
+        st["shift"] += target - phase
+
+    def progress(w: DemoWorld) -> tuple[int, int]:
+        return st["through"], st["released"]
+
+    def lines(w: DemoWorld) -> list[tuple[np.ndarray, tuple[int, int, int]]]:
+        h = w.physics.handle_of(deck)
+        x, R = w.sim.position(h), w.sim.rotation(h)
+        # (the rope's anchor on the deck is kept in the deck's frame: the deck starts unturned)
+        return [(rope_curve(post, x + R @ local, rope_length), P.ROPE_HEMP) for _, post, local in ropes]
+
+    info.tick, info.progress, info.lines = tick, progress, lines
+    info.keys["b"] = ("drawbridge: raise / lower the deck now", toggle)
     return info
 
 

@@ -87,3 +87,24 @@ def test_soak_reports_memory_and_a_pile_that_comes_to_rest(tmp_path, capsys) -> 
     assert [r["step"] for r in rows] == [1, 100, 200, 300]
     assert rows[-1]["awake"] == 0 and rows[-1]["kinetic_energy_j"] == 0.0
     assert all(r["rss_mb"] > 0 for r in rows)
+
+
+def test_joints_bench_times_both_paths(capsys) -> None:  # type: ignore[no-untyped-def]
+    """``python -m ndrigid.bench.joints chain`` and ``ragdolls`` at tiny sizes: one table row per
+    path (numpy alone where numba is missing), the ragdoll pile with its ten parts and nine joints
+    per figure."""
+    from ndrigid.bench.joints import main as joints_main
+    from ndrigid.core import kernels
+
+    paths = "both" if kernels.available() else "numpy"
+    want = ["numpy", "compiled"] if paths == "both" else ["numpy"]
+    assert joints_main(["chain", "--links", "4", "--seconds", "0.05", "--kernels", paths]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0].split()[:2] == ["path", "median"]
+    assert [ln.split()[0] for ln in lines[1:]] == want
+    assert all("4-D chain of 4, 6 steps" in ln for ln in lines[1:])
+    assert joints_main(["ragdolls", "--dim", "3", "--count", "2", "--steps", "3", "--kernels", paths]) == 0
+    rows = [ln for ln in capsys.readouterr().out.splitlines() if "ragdolls" in ln]
+    assert [ln.split()[0] for ln in rows] == want
+    assert all("(20 bodies, 18 joints)" in ln for ln in rows)
+    assert all(float(ln.split()[1]) > 0 for ln in rows)
