@@ -187,9 +187,11 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     singular); a pass that does not shrink the largest error stops them. Internal impulses at the
     poses the bodies move from: momentum is kept exactly, as by the velocity rows (the SHAKE
     condition, Ryckaert, Ciccotti and Berendsen 1977, solved to convergence). Where an error
-    above ``_PROJECT_ABOVE`` is left (a violent step), up to two Newton passes at the current
-    poses move the bodies without touching the velocities (post-stabilisation, Cline and Pai
-    2003); they converge quadratically but do not keep angular momentum exactly.
+    above ``_PROJECT_ABOVE`` is left (a violent step), up to ``_PROJECTIONS`` Newton passes at
+    the current poses move the bodies without touching the velocities (post-stabilisation, Cline
+    and Pai 2003), while the error shrinks; they converge quadratically but do not keep angular
+    momentum exactly. In both phases a pass that makes the largest error grow is undone (the
+    bodies' poses and velocities restored) before stopping.
 
     ``compiled``: the errors of the momentum-keeping passes and the bodies' moves run in the
     compiled ``joints`` and ``integrate`` kernels (the same statements as :func:`_errors` and
@@ -230,34 +232,61 @@ def project(alg: Algebra, bodies: Bodies, joints: JointSet, rows: JointRows | No
     HmT = Hm.T.tocsr()
     last = np.inf
     err = C[jr]
+    saved = None
     for p in range(passes + 1):
         if p:
             err = errors()[jr]
         largest = float(np.abs(err).max())
-        if p == passes or largest <= _DONE or largest >= last:
+        if largest >= last and saved is not None:
+            _restore(bodies, saved)  # the pass made it worse (a turn too large for the step's rows)
+            largest = last
+            break
+        if p == passes or largest <= _DONE:
             break
         last = largest
         dv = (HmT @ lu.solve(-err / dt)).reshape(N + 1, w)[:N]
         moved = np.nonzero(np.any(dv != 0.0, axis=1))[0]
+        saved = _save(bodies, moved)
         bodies.velocity[moved] += dv[moved, :n]
         bodies.angular_velocity[moved] += dv[moved, n:]
         move(moved, dt * dv[moved])
 
-    # what is left after a violent step: project at the current poses, positions only
+    # what is left after a violent step: project at the current poses, positions only, while the
+    # error shrinks (Newton's method at the current poses: quadratic once close)
     if largest <= _PROJECT_ABOVE:
         return
     imA, IA, imB, IB = side_inverses(bodies, rows.a, rows.b)
-    for q in range(2):
+    last, saved = largest, None
+    for q in range(_PROJECTIONS + 1):
         C, G = _errors(alg, bodies, joints, rows, kind, True)
         err = C[jr]
-        if q and float(np.abs(err).max()) <= _PROJECT_ABOVE:
+        largest = float(np.abs(err).max())
+        if q and largest >= last:
+            _restore(bodies, saved)
             break
+        if largest <= _PROJECT_ABOVE or q == _PROJECTIONS:
+            break
+        last = largest
         H = response(G, imA, IA, imB, IB)
         Hc = _sparse_rows(H[jr], ua, ub, ca, cb, size, w)
         shift = (Hc.T @ _factor(_sparse_rows(G[jr], ua, ub, ca, cb, size, w), Hc).solve(-err))
         shift = shift.reshape(N + 1, w)[:N]
         moved = np.nonzero(np.any(shift != 0.0, axis=1))[0]
+        saved = _save(bodies, moved)
         move(moved, shift[moved])
+
+
+_STATE = ("position", "rotor", "rotation", "velocity", "angular_velocity")
+
+
+def _save(bodies: Bodies, rows: IntArray) -> tuple[IntArray, list[Array]]:
+    return rows, [getattr(bodies, name)[rows].copy() for name in _STATE]
+
+
+def _restore(bodies: Bodies, saved: Any) -> None:
+    rows, values = saved
+    for name, v in zip(_STATE, values, strict=True):
+        getattr(bodies, name)[rows] = v
 
 
 #: relative regularisation of the joints' position matrices (a redundant row then shares the
@@ -267,6 +296,8 @@ _REGULARISE = 1e-10
 _DONE = 1e-12
 #: errors above this (m) left after the momentum-keeping passes are projected away at the poses
 _PROJECT_ABOVE = 1e-6
+#: the most projections at the current poses after a violent step
+_PROJECTIONS = 4
 
 
 __all__ = ["project"]

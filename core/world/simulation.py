@@ -185,8 +185,11 @@ class Settings:
     * ``joint_passes`` 8 and ``joint_passes_after`` 4: a 4-D chain of ten 0.2 m links released
       horizontally at 120 Hz (``python -m ndrigid.bench.joints passes``; worst joint error after 1 s
       over 2 s, per link, and ms per step): 2 + 1 passes 17 %, 2.7 ms; 4 + 2 8.3 %, 1.7 ms;
-      8 + 4 7.0 %, 2.0 ms; 12 + 6 7.0 %, 2.4 ms. 8 + 4 is converged for the velocity rows; the
-      error left is the rows' position drift (not yet corrected at the position level).
+      8 + 4 7.0 %, 2.0 ms; 12 + 6 7.0 %, 2.4 ms without a position pass: 8 + 4 is converged for
+      the velocity rows, the error left is position drift.
+    * ``joint_position_passes`` 6: the same chain with 8 + 4 velocity passes and 0, 2, 4, 6, 8
+      position passes: 7.0e-2, 2.1e-5, 1.65e-4, 1.49e-4, 1.32e-4 of a link (bound 1e-3); figures
+      measured before a growing pass was undone, not re-measured since.
     * ``warm_start`` True: without it the stack falls (drift over 12 m, overlap 56-104 mm).
     * ``solver_batching`` "point": the only batching that holds a stack of ten (numbers in
       core/dynamics/solver.py; "manifold" drifts 15 cm in 4-D, "jacobi" collapses).
