@@ -102,7 +102,7 @@ def test_joints_bench_times_both_paths(capsys) -> None:  # type: ignore[no-untyp
     lines = capsys.readouterr().out.splitlines()
     assert lines[0].split()[:2] == ["path", "median"]
     assert [ln.split()[0] for ln in lines[1:]] == want
-    assert all("4-D chain of 4, 6 steps" in ln for ln in lines[1:])
+    assert all("4-D chain of 4 released at 90 deg, 6 steps" in ln for ln in lines[1:])
     assert joints_main(["ragdolls", "--dim", "3", "--count", "2", "--steps", "3", "--kernels", paths]) == 0
     rows = [ln for ln in capsys.readouterr().out.splitlines() if "ragdolls" in ln]
     assert [ln.split()[0] for ln in rows] == want
